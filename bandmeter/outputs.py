@@ -1,0 +1,102 @@
+"""Atomic output files: written to a temporary file in the same folder, then renamed.
+
+A reader never sees a half-written file under the final name, an interrupted write leaves the
+previous file intact, and an existing file is only replaced when ``force`` is given.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from collections.abc import Iterator
+from typing import IO
+
+from .errors import OutputError
+
+
+def check_writable(path: str | os.PathLike[str], force: bool) -> None:
+    """Refuse an output path that exists (unless ``force``) or whose folder is missing.
+
+    Raises
+    ------
+    OutputError
+        With a one-line message naming the path and the fix.
+    """
+    spath = os.fspath(path)
+    if os.path.isdir(spath):
+        raise OutputError(f"{spath}: is a folder, expected a file name for the output")
+    if os.path.exists(spath) and not force:
+        raise OutputError(f"{spath}: already exists; use --force to replace it")
+    folder = os.path.dirname(os.path.abspath(spath))
+    if not os.path.isdir(folder):
+        raise OutputError(f"{spath}: folder {folder} does not exist")
+    if not os.access(folder, os.W_OK):
+        raise OutputError(f"{spath}: folder {folder} is not writable")
+
+
+@contextlib.contextmanager
+def atomic_open(
+    path: str | os.PathLike[str], mode: str = "w", force: bool = False, encoding: str = "utf-8"
+) -> Iterator[IO]:
+    """Open a temporary file next to ``path``; rename it to ``path`` when the block succeeds.
+
+    Parameters
+    ----------
+    path : str or path-like
+        Final file name.
+    mode : {"w", "wb"}
+        Text or binary.
+    force : bool
+        Replace an existing file.
+    encoding : str
+        Text encoding for ``mode="w"``.
+
+    Raises
+    ------
+    OutputError
+        The path exists without ``force``, the folder is missing or not writable, or the
+        write failed (e.g. disk full); the temporary file is removed and any previous file
+        at ``path`` is left as it was.
+    """
+    if mode not in ("w", "wb"):
+        raise ValueError(f"mode must be 'w' or 'wb', got {mode!r}")
+    spath = os.fspath(path)
+    check_writable(spath, force)
+    folder = os.path.dirname(os.path.abspath(spath))
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(spath)}.", suffix=".part",
+                                   dir=folder)
+    except OSError as exc:
+        raise OutputError(f"{spath}: cannot create a file in {folder} ({exc.strerror})") from exc
+    try:
+        kwargs = {} if "b" in mode else {"encoding": encoding, "newline": ""}
+        with os.fdopen(fd, mode, **kwargs) as handle:
+            yield handle
+            handle.flush()
+            os.fsync(handle.fileno())
+        if os.path.exists(spath) and not force:
+            raise OutputError(f"{spath}: appeared while writing; use --force to replace it")
+        os.replace(tmp, spath)
+    except OSError as exc:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        if isinstance(exc, OutputError):
+            raise
+        raise OutputError(f"{spath}: write failed ({exc.strerror or exc})") from exc
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
+
+
+def write_text(path: str | os.PathLike[str], text: str, force: bool = False) -> None:
+    """Write a text file atomically (see :func:`atomic_open`)."""
+    with atomic_open(path, "w", force=force) as handle:
+        handle.write(text)
+
+
+def write_bytes(path: str | os.PathLike[str], data: bytes, force: bool = False) -> None:
+    """Write a binary file atomically (see :func:`atomic_open`)."""
+    with atomic_open(path, "wb", force=force) as handle:
+        handle.write(data)
