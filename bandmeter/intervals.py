@@ -106,3 +106,41 @@ class IntervalPlan:
         if self.first_boundary == 0:
             return ks * self.interval_samples
         return self.first_boundary + (ks - 1) * self.interval_samples
+
+
+_DURATION_UNITS = {
+    "ms": 1e-3,
+    "s": 1.0,
+    "sec": 1.0,
+    "min": 60.0,
+    "m": 60.0,
+    "h": 3600.0,
+    "d": 86400.0,
+}
+
+
+def parse_duration(text: str | float | int) -> float:
+    """Parse a duration such as ``"100ms"``, ``"1s"``, ``"15min"``, ``"1h"`` into seconds.
+
+    A bare number is taken as seconds. Raises SettingsError for anything else or a value
+    that is not positive.
+    """
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        value = float(text)
+    else:
+        s = str(text).strip().lower().replace(" ", "")
+        number = s.rstrip("abcdefghijklmnopqrstuvwxyz")
+        unit = s[len(number):] or "s"
+        if unit not in _DURATION_UNITS or not number:
+            raise SettingsError(
+                f"cannot read duration {text!r}; use e.g. 100ms, 1s, 1min, 15min, 1h"
+            )
+        try:
+            value = float(number) * _DURATION_UNITS[unit]
+        except ValueError:
+            raise SettingsError(
+                f"cannot read duration {text!r}; use e.g. 100ms, 1s, 1min, 15min, 1h"
+            ) from None
+    if not value > 0 or value != value or value == float("inf"):
+        raise SettingsError(f"duration must be positive and finite, got {text!r}")
+    return value

@@ -1,0 +1,711 @@
+"""The streaming level analysis: one pass over a recording feeds every stage.
+
+:class:`LevelEngine` takes blocks of samples on the +-1 full-scale scale and carries all
+filter states across blocks, so memory is bounded by the block length, not the recording
+length, and the results do not depend on the block length. Per block it
+
+1. applies the A and C frequency weightings (Z is the signal itself);
+2. sums the squared A, C and Z signals per interval (for Leq and LE);
+3. applies the F, S and I time weightings to the squared A signal and keeps their maxima and
+   minima per interval, and counts the F-weighted level of every sample in a fine level
+   histogram (0.01 dB bins) from which the percentile levels LAFN are read;
+4. reads the true (inter-sample) C and Z peaks per interval;
+5. counts samples at full scale per interval;
+6. optionally runs the fractional-octave filter bank and sums each band's energy (and its
+   F-weighted maximum) per interval at the band's own sample rate.
+
+Levels are computed in dB re full scale and shifted by the calibration at the end: a sample
+value ``x`` corresponds to ``x * pascal_per_unit`` Pa, so a mean square ``ms`` on the +-1
+scale is the level ``10 lg(2 ms) + full_scale_level_db`` (a full-scale sine, ``ms = 1/2``,
+gives ``full_scale_level_db``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from dataclasses import asdict, dataclass, field
+from datetime import datetime, timedelta
+from typing import Any
+
+import numpy as np
+
+from .audio import DEFAULT_BLOCK_FRAMES, Recording
+from .errors import SettingsError
+from .intervals import IntervalPlan
+from .levels import LevelHistogram, db_from_power_ratio
+from .peak import TruePeakMeter
+from .provenance import file_sha256, tool_stamp
+from .results import DBFS_SUFFIX, UNIT_DBFS, UNIT_SPL, BandLevels, IntervalResult, LevelResult
+from .timeweight import ExponentialAverager, TimeWeighting
+from .weighting import WeightingFilter
+
+#: Default percentile levels N (%), giving LAF1 ... LAF99 (common practice, no source).
+DEFAULT_PERCENTILES = (1.0, 5.0, 10.0, 50.0, 90.0, 95.0, 99.0)
+
+#: F time constant for band maxima, s (IEC 61672-1: F = 0.125 s).
+BAND_TAU_F_S = 0.125
+
+_TEN_LG_2 = 10.0 * math.log10(2.0)
+
+#: Settling time at the start of a recording, s: counted in Leq and LE but not in the
+#: extremes, peaks and percentiles (see LevelEngine notes; common practice, no source).
+DEFAULT_SETTLE_S = 0.1
+
+#: Time constants used to seed the detectors, s: F 0.125, S 1, I 0.035 (IEC 61672-1:2002).
+TIME_CONSTANTS_S = {"F": 0.125, "S": 1.0, "I": 0.035}
+
+#: Band-weighting choices: the bank runs on the Z (unweighted) or the A/C-weighted signal.
+BAND_WEIGHTINGS = ("Z", "A", "C")
+
+#: Fractional-octave designators accepted, with the names the CLI uses.
+BAND_NAMES = {"octave": 1, "1": 1, "third": 3, "3": 3, "6": 6, "12": 12, "24": 24}
+
+
+def percentile_key(n: float) -> str:
+    """Key of a percentile level: 90 -> ``"LAF90"``, 99.9 -> ``"LAF99.9"``."""
+    return f"LAF{n:g}"
+
+
+@dataclass(frozen=True)
+class AnalysisSettings:
+    """What to compute.
+
+    Parameters
+    ----------
+    interval_s : float or None
+        Reporting interval in s; None reports the whole recording only.
+    percentiles : sequence of float
+        N (%) of the percentile levels LAFN, each 0 < N < 100.
+    bands : int or None
+        Fractional-octave designator b (1, 3, 6, 12, 24) or None for no band analysis.
+    fmin_hz, fmax_hz : float or None
+        Band range (nominal or exact mid-band frequencies); None takes the defaults.
+    band_weighting : {"Z", "A", "C"}
+        Weighting of the signal the band filters see.
+    band_max : bool
+        Also report each band's F-weighted maximum level.
+    block_frames : int
+        Samples per block read from the file (any value gives the same result).
+    histogram_resolution_db : float
+        Bin width of the level histogram for percentiles, dB.
+    settle_s : float
+        Settling time at the start, s: counted in Leq and LE, not in the extremes, peaks and
+        percentiles (see :class:`LevelEngine`). 0 reads everything from the first sample.
+    """
+
+    interval_s: float | None = None
+    percentiles: Sequence[float] = DEFAULT_PERCENTILES
+    bands: int | None = None
+    fmin_hz: float | None = None
+    fmax_hz: float | None = None
+    band_weighting: str = "Z"
+    band_max: bool = False
+    block_frames: int = DEFAULT_BLOCK_FRAMES
+    histogram_resolution_db: float = 0.01
+    settle_s: float = DEFAULT_SETTLE_S
+
+    def __post_init__(self) -> None:
+        if self.interval_s is not None and not (
+            self.interval_s > 0 and math.isfinite(self.interval_s)
+        ):
+            raise SettingsError(f"interval must be a positive number of s, got {self.interval_s!r}")
+        pct = tuple(float(p) for p in self.percentiles)
+        for p in pct:
+            if not 0.0 < p < 100.0:
+                raise SettingsError(f"percentile N must satisfy 0 < N < 100, got {p!r}")
+        if len(set(pct)) != len(pct):
+            raise SettingsError(f"percentiles repeat a value: {list(pct)!r}")
+        object.__setattr__(self, "percentiles", tuple(sorted(pct)))
+        if self.bands is not None and self.bands not in (1, 3, 6, 12, 24):
+            raise SettingsError(f"bands must be 1, 3, 6, 12 or 24, got {self.bands!r}")
+        weighting = str(self.band_weighting).upper()
+        if weighting not in BAND_WEIGHTINGS:
+            raise SettingsError(f"band weighting must be Z, A or C, got {self.band_weighting!r}")
+        object.__setattr__(self, "band_weighting", weighting)
+        if int(self.block_frames) != self.block_frames or self.block_frames < 1:
+            raise SettingsError(
+                f"block_frames must be a positive integer, got {self.block_frames!r}"
+            )
+        if not (0.0 <= self.settle_s <= 10.0):
+            raise SettingsError(f"settle_s must lie in [0, 10] s, got {self.settle_s!r}")
+        if not self.histogram_resolution_db > 0:
+            raise SettingsError(
+                f"histogram resolution must be > 0 dB, got {self.histogram_resolution_db!r}"
+            )
+
+    def to_dict(self) -> dict[str, Any]:
+        out = asdict(self)
+        out["percentiles"] = list(self.percentiles)
+        return out
+
+
+class _Grow:
+    """A 1-d or 2-d float array indexed by interval number that grows on demand."""
+
+    def __init__(self, fill: float, width: int | None = None, dtype: type = np.float64) -> None:
+        self.fill = fill
+        self.width = width
+        shape = (64,) if width is None else (64, width)
+        self.data = np.full(shape, fill, dtype=dtype)
+
+    def ensure(self, k: int) -> None:
+        if k < self.data.shape[0]:
+            return
+        rows = max(k + 1, 2 * self.data.shape[0])
+        shape = (rows,) if self.width is None else (rows, self.width)
+        grown = np.full(shape, self.fill, dtype=self.data.dtype)
+        grown[: self.data.shape[0]] = self.data
+        self.data = grown
+
+
+@dataclass
+class _BandState:
+    """Per-band bookkeeping of the engine."""
+
+    factor: int
+    position: int = 0  # samples produced so far at the band's rate
+    averager: ExponentialAverager | None = None
+
+
+@dataclass
+class _Accumulators:
+    """Per-interval energy sums, extremes and counts (grow with the number of intervals)."""
+
+    n_percentiles: int
+    n_bands: int
+    grows: dict[str, _Grow] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        for name in ("sum_a2", "sum_c2", "sum_z2"):
+            self.grows[name] = _Grow(0.0)
+        for name in ("max_f", "max_s", "max_i", "peak_c", "peak_z"):
+            self.grows[name] = _Grow(-np.inf)
+        for name in ("min_f", "min_s"):
+            self.grows[name] = _Grow(np.inf)
+        self.grows["count"] = _Grow(0, dtype=np.int64)
+        self.grows["full_scale"] = _Grow(0, dtype=np.int64)
+        self.grows["pct"] = _Grow(np.nan, self.n_percentiles)
+        if self.n_bands:
+            self.grows["band_sum"] = _Grow(0.0, self.n_bands)
+            self.grows["band_count"] = _Grow(0, self.n_bands, dtype=np.int64)
+            self.grows["band_max"] = _Grow(-np.inf, self.n_bands)
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        return self.grows[name].data
+
+    def ensure(self, k: int) -> None:
+        for g in self.grows.values():
+            g.ensure(k)
+
+
+class LevelEngine:
+    """Streaming sound level analysis of one channel.
+
+    Parameters
+    ----------
+    fs : float
+        Sampling rate, Hz.
+    settings : AnalysisSettings
+        What to compute.
+    full_scale_threshold : float
+        Magnitude counted as full scale (see :attr:`RecordingInfo.full_scale_threshold`).
+    first_boundary : int
+        Sample index of the first interval boundary (0, or a clock-aligned offset).
+    total_frames : int, optional
+        Length of the stream when known; a stream shorter than twice the settling time is
+        read from its first sample (with a warning).
+
+    Notes
+    -----
+    Settling. A recording starts in the middle of a sound, but the filters start at rest, so
+    the first milliseconds carry a switch-on transient that no instrument left running would
+    show (up to several dB on a steady low-frequency tone). The first ``settle_s`` seconds
+    (default 0.1 s, about 13 time constants of the 20.6 Hz weighting poles; common practice,
+    no source) therefore count in the energy quantities (Leq, LE) but not in the extremes
+    and distributions: LAFmax/min, LASmax/min, LAImax, LCpeak, LZpeak and the percentile
+    levels are read from ``settle_s`` on. The F, S and I detectors start at ``settle_s``,
+    seeded with the mean square of the A-weighted signal over the following time constant,
+    so LAFmin and LASmin do not read a detector rising from zero. Call :meth:`prime` with the
+    first ``settle_s`` + 1 s of the recording before the first :meth:`process` call (or let
+    the first block serve), then :meth:`process` with consecutive blocks and :meth:`finish`
+    once. The fractional-octave filters start at rest too: their settling (longest in the
+    lowest bands, a few periods of the band's mid frequency) counts in the first interval.
+    """
+
+    def __init__(
+        self,
+        fs: float,
+        settings: AnalysisSettings,
+        full_scale_threshold: float = 1.0,
+        first_boundary: int = 0,
+        total_frames: int | None = None,
+    ) -> None:
+        self.fs = float(fs)
+        self.settings = settings
+        self.full_scale_threshold = float(full_scale_threshold)
+        self.warnings: list[str] = []
+        interval_samples = None
+        if settings.interval_s is not None:
+            exact = settings.interval_s * self.fs
+            interval_samples = max(1, int(round(exact)))
+            if abs(exact - interval_samples) > 1e-6 * exact:
+                self.warnings.append(
+                    f"interval {settings.interval_s:g} s is not a whole number of samples at "
+                    f"{self.fs:g} Hz; using {interval_samples} samples "
+                    f"({interval_samples / self.fs:.9g} s)"
+                )
+        self.interval_samples = interval_samples
+        self.plan = IntervalPlan(interval_samples, first_boundary)
+        self.weight_a = WeightingFilter("A", self.fs)
+        self.weight_c = WeightingFilter("C", self.fs)
+        self.time_weightings: dict[str, TimeWeighting] = {}
+        self.settle_samples = int(round(settings.settle_s * self.fs))
+        if total_frames is not None and total_frames < 2 * self.settle_samples:
+            self.warnings.append(
+                f"recording shorter than twice the settling time ({settings.settle_s:g} s): "
+                "extremes and peaks are read from the first sample and include the filters' "
+                "switch-on"
+            )
+            self.settle_samples = 0
+        self.peak_c = TruePeakMeter(self.fs, self.plan, origin=self.settle_samples)
+        self.peak_z = TruePeakMeter(self.fs, self.plan, origin=self.settle_samples)
+        self.bank = None
+        self.band_states: list[_BandState] = []
+        if settings.bands is not None:
+            from .filterbank import FractionalOctaveBank
+
+            self.bank = FractionalOctaveBank(
+                self.fs, settings.bands, settings.fmin_hz, settings.fmax_hz
+            )
+            if self.bank.dropped:
+                names = ", ".join(b.label for b in self.bank.dropped)
+                self.warnings.append(
+                    f"bands {names} Hz dropped: above what {self.fs:g} Hz sampling supports"
+                )
+            for factor, rate in zip(self.bank.factors, self.bank.rates_hz, strict=True):
+                averager = ExponentialAverager(rate, BAND_TAU_F_S) if settings.band_max else None
+                self.band_states.append(_BandState(int(factor), 0, averager))
+        self.acc = _Accumulators(len(settings.percentiles), len(self.band_states))
+        self._hist_proto = LevelHistogram(settings.histogram_resolution_db, -400.0, 60.0)
+        self._hist_interval = -1
+        self._hist: LevelHistogram | None = None
+        self.overall_histogram = self._hist_proto.copy_empty()
+        self.position = 0
+        self._primed = False
+        self._finished = False
+
+    # -- set-up -----------------------------------------------------------------------------
+    def prime(self, prefix: np.ndarray) -> None:
+        """Seed the time-weighting detectors from the start of the recording.
+
+        Parameters
+        ----------
+        prefix : numpy.ndarray
+            The first samples of the recording: at least ``settle_s`` + 1 s when available
+            (shorter recordings pass all they have).
+        """
+        if self._primed or self.position:
+            raise SettingsError("prime() must be called once, before the first block")
+        pre = np.asarray(prefix, dtype=np.float64)
+        a = WeightingFilter("A", self.fs).process(pre)
+        a2 = a[min(self.settle_samples, len(a)):] ** 2
+        for name in ("F", "S", "I"):
+            m = max(1, min(len(a2), int(round(TIME_CONSTANTS_S[name] * self.fs))))
+            seed = float(np.mean(a2[:m])) if len(a2) else 0.0
+            self.time_weightings[name] = TimeWeighting(self.fs, name, initial_mean_square=seed)
+        self._primed = True
+
+    def _segments(self, start: int, n: int) -> tuple[np.ndarray, np.ndarray]:
+        """Offsets (within a run of ``n`` samples from ``start``) where intervals begin, and
+        the interval number of each piece."""
+        splits = self.plan.boundaries_between(start, start + n) - start
+        seg = np.concatenate(([0], splits)).astype(np.intp)
+        ids = self.plan.interval_index(start + seg)
+        self.acc.ensure(int(ids[-1]))
+        return seg, ids
+
+    # -- streaming --------------------------------------------------------------------------
+    def process(self, block: np.ndarray) -> None:
+        """Analyse the next block of samples (+-1 full-scale scale, float64)."""
+        if self._finished:
+            raise SettingsError("process() called after finish()")
+        x = np.asarray(block, dtype=np.float64)
+        if not self._primed:
+            self.prime(x[: self.settle_samples + int(self.fs)])
+        n = len(x)
+        if n == 0:
+            return
+        start = self.position
+        seg, ids = self._segments(start, n)
+        acc = self.acc
+        a = self.weight_a.process(x)
+        c = self.weight_c.process(x)
+        a2 = a * a
+        acc["sum_a2"][ids] += np.add.reduceat(a2, seg)
+        acc["sum_c2"][ids] += np.add.reduceat(c * c, seg)
+        acc["sum_z2"][ids] += np.add.reduceat(x * x, seg)
+        acc["count"][ids] += np.diff(np.append(seg, n))
+        acc["full_scale"][ids] += np.add.reduceat(
+            (np.abs(x) >= self.full_scale_threshold).astype(np.int64), seg
+        )
+        settled = max(0, self.settle_samples - start)
+        if settled < n:
+            self._process_extremes(start + settled, x[settled:], a2[settled:], c[settled:])
+        if self.bank is not None:
+            band_input = {"Z": x, "A": a, "C": c}[self.settings.band_weighting]
+            self._process_bands(self.bank.process(band_input))
+        self.position += n
+
+    def _process_extremes(
+        self, start: int, x: np.ndarray, a2: np.ndarray, c: np.ndarray
+    ) -> None:
+        """Time-weighted extremes, level distribution and peaks of settled samples."""
+        acc = self.acc
+        seg, ids = self._segments(start, len(x))
+        f = self.time_weightings["F"].process(a2)
+        s = self.time_weightings["S"].process(a2)
+        i = self.time_weightings["I"].process(a2)
+        acc["max_f"][ids] = np.maximum(acc["max_f"][ids], np.maximum.reduceat(f, seg))
+        acc["min_f"][ids] = np.minimum(acc["min_f"][ids], np.minimum.reduceat(f, seg))
+        acc["max_s"][ids] = np.maximum(acc["max_s"][ids], np.maximum.reduceat(s, seg))
+        acc["min_s"][ids] = np.minimum(acc["min_s"][ids], np.minimum.reduceat(s, seg))
+        acc["max_i"][ids] = np.maximum(acc["max_i"][ids], np.maximum.reduceat(i, seg))
+        self._count_levels(f, seg, ids)
+        self.peak_c.process(c)
+        self.peak_z.process(x)
+        self._store_peaks(self.peak_c.completed(), self.peak_z.completed())
+
+    def _count_levels(self, f: np.ndarray, seg: np.ndarray, ids: np.ndarray) -> None:
+        levels = db_from_power_ratio(f)
+        edges = np.append(seg, len(f))
+        for k, lo, hi in zip(ids, edges[:-1], edges[1:], strict=True):
+            if k != self._hist_interval:
+                self._close_histogram()
+                self._hist_interval = int(k)
+                self._hist = self._hist_proto.copy_empty()
+            assert self._hist is not None
+            self._hist.add_levels(levels[lo:hi])
+
+    def _close_histogram(self) -> None:
+        if self._hist is None:
+            return
+        k = self._hist_interval
+        self.acc["pct"][k] = self._hist.exceeded(self.settings.percentiles)
+        self.overall_histogram.merge(self._hist)
+        self._hist = None
+
+    def _store_peaks(self, peaks_c: dict[int, float], peaks_z: dict[int, float]) -> None:
+        for name, peaks in (("peak_c", peaks_c), ("peak_z", peaks_z)):
+            for k, value in peaks.items():
+                self.acc.ensure(k)
+                self.acc[name][k] = max(self.acc[name][k], value)
+
+    def _process_bands(self, outputs: list[np.ndarray]) -> None:
+        acc = self.acc
+        for j, (y, state) in enumerate(zip(outputs, self.band_states, strict=True)):
+            m = len(y)
+            if m == 0:
+                continue
+            d = state.factor
+            j0 = state.position
+            # full-rate boundaries inside the band stream's span, mapped to the band rate
+            full = self.plan.boundaries_between(j0 * d, (j0 + m) * d)
+            split = np.unique(-(-full // d) - j0)  # ceil(b / d) - j0
+            split = split[(split > 0) & (split < m)]
+            seg = np.concatenate(([0], split)).astype(np.intp)
+            ids = self.plan.interval_index((j0 + seg) * d)
+            acc.ensure(int(ids[-1]))
+            y2 = y * y
+            acc["band_sum"][ids, j] += np.add.reduceat(y2, seg)
+            acc["band_count"][ids, j] += np.diff(np.append(seg, m))
+            if state.averager is not None:
+                env = state.averager.process(y2)
+                acc["band_max"][ids, j] = np.maximum(
+                    acc["band_max"][ids, j], np.maximum.reduceat(env, seg)
+                )
+            state.position += m
+
+    def finish(self) -> None:
+        """Flush the detectors at the end of the recording."""
+        if self._finished:
+            return
+        self._close_histogram()
+        self._store_peaks(self.peak_c.finish(), self.peak_z.finish())
+        self._finished = True
+
+    # -- results ----------------------------------------------------------------------------
+    def n_intervals(self) -> int:
+        """Number of intervals that received samples."""
+        if self.position == 0:
+            return 0
+        return int(self.plan.interval_index(self.position - 1)) + 1
+
+    def results(
+        self, level_offset_db: float, calibrated: bool, start_time: datetime | None = None
+    ) -> tuple[IntervalResult, list[IntervalResult]]:
+        """Whole-recording and per-interval results.
+
+        Parameters
+        ----------
+        level_offset_db : float
+            ``full_scale_level_db`` of the calibration (0 for dB re full scale).
+        calibrated : bool
+            False gives keys with the ``_dBFS`` suffix.
+        start_time : datetime, optional
+            Clock time of the first sample (timezone-aware), for interval start times.
+        """
+        if not self._finished:
+            self.finish()
+        k = self.n_intervals()
+        if k == 0:
+            raise SettingsError("no samples were analysed")
+        acc = self.acc
+        offset_ms = level_offset_db + _TEN_LG_2  # 10 lg(2 ms) + L_fs
+        offset_peak = level_offset_db + _TEN_LG_2  # 20 lg(peak) + 10 lg 2 + L_fs
+        suffix = "" if calibrated else DBFS_SUFFIX
+        rows = {name: acc[name][:k] for name in acc.grows}
+        intervals = []
+        nominal = self.interval_samples
+        for idx in range(k):
+            start = self.plan.interval_start(idx)
+            count = int(rows["count"][idx])
+            intervals.append(
+                self._row(idx, start, count, nominal, rows, idx, offset_ms, offset_peak,
+                          suffix, start_time)
+            )
+        overall_rows = {
+            "sum_a2": rows["sum_a2"].sum(keepdims=True),
+            "sum_c2": rows["sum_c2"].sum(keepdims=True),
+            "sum_z2": rows["sum_z2"].sum(keepdims=True),
+            "count": rows["count"].sum(keepdims=True),
+            "full_scale": rows["full_scale"].sum(keepdims=True),
+            "max_f": rows["max_f"].max(keepdims=True),
+            "max_s": rows["max_s"].max(keepdims=True),
+            "max_i": rows["max_i"].max(keepdims=True),
+            "min_f": rows["min_f"].min(keepdims=True),
+            "min_s": rows["min_s"].min(keepdims=True),
+            "peak_c": rows["peak_c"].max(keepdims=True),
+            "peak_z": rows["peak_z"].max(keepdims=True),
+            "pct": self.overall_histogram.exceeded(self.settings.percentiles)[None, :],
+        }
+        if self.band_states:
+            overall_rows["band_sum"] = rows["band_sum"].sum(axis=0, keepdims=True)
+            overall_rows["band_count"] = rows["band_count"].sum(axis=0, keepdims=True)
+            overall_rows["band_max"] = rows["band_max"].max(axis=0, keepdims=True)
+        overall = self._row(-1, 0, int(overall_rows["count"][0]), None, overall_rows, 0,
+                            offset_ms, offset_peak, suffix, start_time)
+        return overall, intervals
+
+    def _row(
+        self,
+        index: int,
+        start: int,
+        count: int,
+        nominal: int | None,
+        rows: dict[str, np.ndarray],
+        r: int,
+        offset_ms: float,
+        offset_peak: float,
+        suffix: str,
+        start_time: datetime | None,
+    ) -> IntervalResult:
+        def ms_level(value: float) -> float:
+            return float(db_from_power_ratio(value) + offset_ms)
+
+        def peak_level(value: float) -> float:
+            return float(20.0 * np.log10(value) + offset_peak) if value > 0 else -math.inf
+
+        duration = count / self.fs
+        metrics: dict[str, float] = {}
+        n = max(count, 1)
+        metrics["LAeq"] = ms_level(rows["sum_a2"][r] / n)
+        metrics["LCeq"] = ms_level(rows["sum_c2"][r] / n)
+        metrics["LZeq"] = ms_level(rows["sum_z2"][r] / n)
+        metrics["LAE"] = ms_level(rows["sum_a2"][r] / self.fs)
+        metrics["LAFmax"] = ms_level(rows["max_f"][r])
+        metrics["LAFmin"] = ms_level(rows["min_f"][r])
+        metrics["LASmax"] = ms_level(rows["max_s"][r])
+        metrics["LASmin"] = ms_level(rows["min_s"][r])
+        metrics["LAImax"] = ms_level(rows["max_i"][r])
+        metrics["LCpeak"] = peak_level(rows["peak_c"][r])
+        metrics["LZpeak"] = peak_level(rows["peak_z"][r])
+        for p, value in zip(self.settings.percentiles, rows["pct"][r], strict=True):
+            metrics[percentile_key(p)] = float(value) + offset_ms
+        if suffix:
+            metrics = {key + suffix: value for key, value in metrics.items()}
+        bands = None
+        if self.band_states:
+            bands = self._band_rows(rows, r, offset_ms, suffix)
+        clock = None
+        if start_time is not None:
+            clock = (start_time + timedelta(seconds=start / self.fs)).isoformat()
+        return IntervalResult(
+            index=index,
+            start_s=start / self.fs,
+            duration_s=duration,
+            partial=nominal is not None and count < nominal,
+            start_time=clock,
+            full_scale_samples=int(rows["full_scale"][r]),
+            metrics=metrics,
+            bands=bands,
+        )
+
+    def _band_rows(
+        self, rows: dict[str, np.ndarray], r: int, offset_ms: float, suffix: str
+    ) -> list[BandLevels]:
+        assert self.bank is not None
+        letter = self.settings.band_weighting
+        out = []
+        for j, band in enumerate(self.bank.bands):
+            count = int(rows["band_count"][r, j])
+            ms = rows["band_sum"][r, j] / count if count else np.nan
+            levels = {f"L{letter}eq" + suffix: float(db_from_power_ratio(ms) + offset_ms)
+                      if count else math.nan}
+            if self.settings.band_max:
+                levels[f"L{letter}Fmax" + suffix] = float(
+                    db_from_power_ratio(rows["band_max"][r, j]) + offset_ms
+                ) if count else math.nan
+            out.append(BandLevels(band.nominal_hz, band.exact_hz, band.label, levels))
+        return out
+
+
+def prefix_samples(fs: float, settings: AnalysisSettings) -> int:
+    """Samples :meth:`LevelEngine.prime` wants: the settling time plus 1 s (the S constant)."""
+    return int(round(settings.settle_s * fs)) + int(round(TIME_CONSTANTS_S["S"] * fs))
+
+
+def analyse_blocks(
+    blocks: Iterable[np.ndarray],
+    fs: float,
+    settings: AnalysisSettings,
+    full_scale_level_db: float | None,
+    full_scale_threshold: float = 1.0,
+    prefix: np.ndarray | None = None,
+    start_time: datetime | None = None,
+    first_boundary: int = 0,
+    total_frames: int | None = None,
+) -> tuple[LevelEngine, IntervalResult, list[IntervalResult]]:
+    """Run the engine over an iterable of blocks; see :func:`analyse_file` for the file form.
+
+    ``prefix`` (the first second of the stream) seeds the time weightings; without it the
+    first block's start is used.
+    """
+    engine = LevelEngine(fs, settings, full_scale_threshold, first_boundary, total_frames)
+    if prefix is not None:
+        engine.prime(prefix)
+    for block in blocks:
+        engine.process(block)
+    engine.finish()
+    offset = 0.0 if full_scale_level_db is None else float(full_scale_level_db)
+    overall, intervals = engine.results(offset, full_scale_level_db is not None, start_time)
+    return engine, overall, intervals
+
+
+def analyse_array(
+    x: np.ndarray,
+    fs: float,
+    settings: AnalysisSettings | None = None,
+    full_scale_level_db: float | None = None,
+    start_time: datetime | None = None,
+) -> tuple[IntervalResult, list[IntervalResult]]:
+    """Analyse a signal held in memory (samples on the +-1 scale) with the streaming engine.
+
+    Returns the whole-signal result and the interval results; levels in dB re 20 uPa when
+    ``full_scale_level_db`` is given, else dB re full scale (keys with ``_dBFS``).
+    """
+    settings = settings or AnalysisSettings()
+    x = np.asarray(x, dtype=np.float64)
+    step = settings.block_frames
+    blocks = (x[i : i + step] for i in range(0, len(x), step))
+    _, overall, intervals = analyse_blocks(
+        blocks, fs, settings, full_scale_level_db, prefix=x[: prefix_samples(fs, settings)],
+        start_time=start_time, total_frames=len(x)
+    )
+    return overall, intervals
+
+
+def analyse_file(
+    path: str,
+    calibration: Any | None,
+    settings: AnalysisSettings | None = None,
+    channel: int = 1,
+    start_time: datetime | None = None,
+    allow_uncalibrated: bool = False,
+) -> LevelResult:
+    """Analyse one channel of a recording in one streaming pass.
+
+    Parameters
+    ----------
+    path : str
+        Recording file.
+    calibration : Calibration or None
+        Chain calibration (see :mod:`bandmeter.calibration`). None is only accepted with
+        ``allow_uncalibrated=True`` and gives levels in dB re full scale.
+    settings : AnalysisSettings, optional
+        What to compute (defaults: whole recording, default percentiles, no bands).
+    channel : int
+        Channel, 1-based.
+    start_time : datetime, optional
+        Clock time of the first sample (timezone-aware).
+    allow_uncalibrated : bool
+        Accept a missing calibration and report dB re full scale.
+
+    Returns
+    -------
+    LevelResult
+    """
+    from .calibration import Calibration  # local: calibration imports audio only
+
+    settings = settings or AnalysisSettings()
+    if calibration is None and not allow_uncalibrated:
+        raise SettingsError(
+            f"{path}: no calibration given; pass --cal, --cal-tone with --cal-level, or "
+            "--full-scale-level (or --dbfs for levels re full scale)"
+        )
+    if calibration is not None:
+        if not isinstance(calibration, Calibration):
+            raise TypeError(f"calibration must be a Calibration, got {type(calibration)!r}")
+        calibration.check_channel(channel)
+    with Recording(path, channel) as rec:
+        info = rec.info
+        prefix = rec.read(0, min(info.frames, prefix_samples(info.sample_rate, settings)))
+        engine, overall, intervals = analyse_blocks(
+            rec.blocks(settings.block_frames),
+            info.sample_rate,
+            settings,
+            None if calibration is None else calibration.full_scale_level_db,
+            info.full_scale_threshold,
+            prefix=prefix,
+            start_time=start_time,
+            total_frames=info.frames,
+        )
+    warnings = list(engine.warnings)
+    if settings.interval_s is not None and settings.interval_s * info.sample_rate > info.frames:
+        warnings.append(
+            f"interval {settings.interval_s:g} s is longer than the recording "
+            f"({info.duration_s:.3f} s): one partial interval"
+        )
+    if overall.full_scale_samples:
+        flagged = sum(1 for iv in intervals if iv.overload)
+        warnings.append(
+            f"{overall.full_scale_samples} sample(s) at or beyond full scale in {flagged} "
+            "interval(s): possible overload, levels there may be too low; see the overload flags"
+        )
+    if calibration is not None:
+        warnings.extend(f"calibration: {w}" for w in calibration.warnings)
+    provenance = {**tool_stamp(), "sha256": file_sha256(path)}
+    return LevelResult(
+        file=path,
+        channel=channel,
+        sample_rate=info.sample_rate,
+        frames=info.frames,
+        unit=UNIT_SPL if calibration is not None else UNIT_DBFS,
+        overall=overall,
+        intervals=intervals,
+        settings=settings.to_dict(),
+        calibration=None if calibration is None else calibration.to_dict(),
+        recording=info.to_dict(),
+        provenance=provenance,
+        warnings=warnings,
+    )
