@@ -52,6 +52,11 @@ _TEN_LG_2 = 10.0 * math.log10(2.0)
 #: extremes, peaks and percentiles (see LevelEngine notes; common practice, no source).
 DEFAULT_SETTLE_S = 0.1
 
+#: Longest window after the settling time whose mean square seeds a detector, s: the F time
+#: constant, so that an event in the first moments cannot lift the S detector's start
+#: (common practice, no source).
+SEED_WINDOW_S = 0.125
+
 #: Time constants used to seed the detectors, s: F 0.125, S 1, I 0.035 (IEC 61672-1:2002).
 TIME_CONSTANTS_S = {"F": 0.125, "S": 1.0, "I": 0.035}
 
@@ -225,12 +230,14 @@ class LevelEngine:
     no source) therefore count in the energy quantities (Leq, LE) but not in the extremes
     and distributions: LAFmax/min, LASmax/min, LAImax, LCpeak, LZpeak and the percentile
     levels are read from ``settle_s`` on. The F, S and I detectors start at ``settle_s``,
-    seeded with the mean square of the A-weighted signal over the following time constant,
-    so LAFmin and LASmin do not read a detector rising from zero. Call :meth:`prime` with the
-    first ``settle_s`` + 1 s of the recording before the first :meth:`process` call (or let
-    the first block serve), then :meth:`process` with consecutive blocks and :meth:`finish`
-    once. The fractional-octave filters start at rest too: their settling (longest in the
-    lowest bands, a few periods of the band's mid frequency) counts in the first interval.
+    seeded with the mean square of the A-weighted signal over the following 125 ms (35 ms
+    for I), so LAFmin and LASmin do not read a detector rising from zero; a sound that
+    starts within that window lifts the seed (a stated bias of the first second of LASmin).
+    Call :meth:`prime` with the first ``settle_s`` + 1 s of the recording before the first
+    :meth:`process` call (or let the first block serve), then :meth:`process` with
+    consecutive blocks and :meth:`finish` once. The fractional-octave filters start at rest
+    too: their settling (longest in the lowest bands, a few periods of the band's mid
+    frequency) counts in the first interval.
     """
 
     def __init__(
@@ -311,7 +318,8 @@ class LevelEngine:
         a = WeightingFilter("A", self.fs).process(pre)
         a2 = a[min(self.settle_samples, len(a)):] ** 2
         for name in ("F", "S", "I"):
-            m = max(1, min(len(a2), int(round(TIME_CONSTANTS_S[name] * self.fs))))
+            window_s = min(TIME_CONSTANTS_S[name], SEED_WINDOW_S)
+            m = max(1, min(len(a2), int(round(window_s * self.fs))))
             seed = float(np.mean(a2[:m])) if len(a2) else 0.0
             self.time_weightings[name] = TimeWeighting(self.fs, name, initial_mean_square=seed)
         self._primed = True
@@ -510,10 +518,16 @@ class LevelEngine:
         suffix: str,
         start_time: datetime | None,
     ) -> IntervalResult:
+        # extremes of an interval that holds no settled sample stay at their +-inf start
+        # values: report them as NaN (no reading), not as a level
         def ms_level(value: float) -> float:
+            if math.isinf(value):
+                return math.nan
             return float(db_from_power_ratio(value) + offset_ms)
 
         def peak_level(value: float) -> float:
+            if math.isinf(value):
+                return math.nan
             return float(20.0 * np.log10(value) + offset_peak) if value > 0 else -math.inf
 
         duration = count / self.fs

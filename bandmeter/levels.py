@@ -222,23 +222,20 @@ class LevelHistogram:
         total = self.total
         if total == 0:
             return np.full(n.shape, np.nan)
-        # cumulative count from the top: above[i] = values in bins > i
         counts = self.counts
         cum_from_top = np.cumsum(counts[::-1])[::-1]  # values in bins >= i
-        target = n / 100.0 * total  # number of values above the wanted level
-        out = np.empty(n.shape)
-        for j, t in enumerate(np.atleast_1d(target)):
-            # the highest bin i with cum_from_top[i] > t contains the level
-            i = int(np.searchsorted(-cum_from_top, -t, side="left")) - 1
-            i = max(i, int(np.flatnonzero(counts)[0]))
-            above = cum_from_top[i + 1] if i + 1 < counts.size else 0
-            inside = counts[i]
-            frac = 0.0 if inside == 0 else min(max((t - above) / inside, 0.0), 1.0)
-            if i == 0:
-                out.flat[j] = -math.inf
-            elif i == self.nbins + 1:
-                out.flat[j] = self.high_db
-            else:
-                bin_low = self.low_db + (i - 1) * self.resolution_db
-                out.flat[j] = bin_low + (1.0 - frac) * self.resolution_db
+        target = np.atleast_1d(n / 100.0 * total)  # number of values above the wanted level
+        # the highest bin i with cum_from_top[i] > target contains the level
+        i = np.searchsorted(-cum_from_top, -target, side="left") - 1
+        i = np.maximum(i, int(np.flatnonzero(counts)[0]))
+        above = np.where(i + 1 < counts.size, cum_from_top[np.minimum(i + 1, counts.size - 1)],
+                         0)
+        inside = counts[i]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            frac = np.clip(np.where(inside > 0, (target - above) / inside, 0.0), 0.0, 1.0)
+        bin_low = self.low_db + (i - 1) * self.resolution_db
+        out = bin_low + (1.0 - frac) * self.resolution_db
+        out = np.where(i == 0, -math.inf, out)
+        out = np.where(i == self.nbins + 1, self.high_db, out)
+        out = out.reshape(n.shape)
         return out

@@ -37,6 +37,7 @@ import numpy as np
 from scipy.signal import lfilter
 
 from .errors import SettingsError
+from .numerics import STATE_FLOOR, flush_tiny
 
 #: F (Fast) time constant in s. IEC 61672-1:2013; REFERENCE_VALUES.md 4 (confirmed).
 TAU_FAST_S = 0.125
@@ -162,7 +163,8 @@ class ExponentialAverager:
         x = _squared_block(squared_block)
         if x.size == 0:
             return x.copy()
-        y, self._zi = lfilter(self._b, self._den, x, zi=self._zi)
+        y, zi = lfilter(self._b, self._den, x, zi=self._zi)
+        self._zi = flush_tiny(zi)  # keep the state out of slow subnormal numbers
         self._last = float(y[-1])
         return y
 
@@ -245,7 +247,8 @@ class PeakDetector:
         np.maximum(scan, self._held * self._d, out=scan)
         held = np.multiply(scan, self._decay[:n], out=scan)
         np.maximum(held, x, out=held)
-        self._held = float(held[-1])
+        last = float(held[-1])
+        self._held = last if last >= STATE_FLOOR else 0.0  # no slow subnormal state
         return held
 
 

@@ -126,6 +126,7 @@ from numpy.typing import ArrayLike
 from scipy import optimize, signal
 
 from .errors import SettingsError
+from .numerics import flush_tiny
 
 #: Frequency weightings offered (IEC 61672-1:2013).
 WEIGHTINGS = ("A", "C", "Z")
@@ -659,5 +660,6 @@ class WeightingFilter:
             raise SettingsError(f"expected a 1-D block (one channel), got shape {x.shape!r}")
         if self.weighting == "Z" or x.size == 0:
             return x
-        y, self._zi = signal.sosfilt(self.sos, x, zi=self._zi)
+        y, zi = signal.sosfilt(self.sos, x, zi=self._zi)
+        self._zi = flush_tiny(zi)  # keep the state out of slow subnormal numbers
         return y
