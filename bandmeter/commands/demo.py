@@ -1,0 +1,46 @@
+"""``bandmeter demo``: the invented survey, end to end."""
+
+from __future__ import annotations
+
+import click
+
+from ..cli import cli, warn
+from ..demo import CALIBRATOR_DB, CHAIN_DRIFT_DB, CHAIN_FULL_SCALE_DB, run_demo
+from .calibrate import calibration_lines
+from .levels import render_levels
+
+
+@cli.command("demo")
+@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+              help="Folder for the demo's recordings and results (default: a new temporary "
+                   "folder; never the current folder unless given).")
+@click.option("--force", is_flag=True, help="Replace the files of an earlier demo in --out.")
+def demo_command(out_dir: str | None, force: bool) -> None:
+    """Run bandmeter on a built-in invented survey and print the results.
+
+    \b
+    Example:
+      bandmeter demo --out ./demo
+    Synthesises (seeded, the same on every machine) a night recording at the fictional
+    Larkspur Lane depot, position MP2, with a pre and a post calibrator tone, then
+    calibrates the chain from the tones and analyses the recording with the real engine.
+    """
+    result = run_demo(out_dir, force=force)
+    click.echo("bandmeter demo: night survey at the (invented) Larkspur Lane depot, MP2")
+    click.echo(f"files in {result.out_dir}")
+    click.echo("")
+    click.echo(f"1. Calibration ({CALIBRATOR_DB:.1f} dB calibrator; the synthetic chain is "
+               f"{CHAIN_FULL_SCALE_DB:.1f} dB full scale and drifts {CHAIN_DRIFT_DB:+.2f} dB)")
+    click.echo(calibration_lines(result.calibration))
+    click.echo("")
+    click.echo("2. Sound levels of the night recording, 10 s intervals")
+    click.echo(render_levels(result.levels))
+    click.echo("")
+    click.echo("Files written:")
+    for role, path in result.files.items():
+        click.echo(f"  {role:12s} {path}")
+    click.echo("")
+    click.echo("Results are indicative: a measurement for a report or a compliance decision "
+               "follows the applicable standards, local regulations and licensed practice.")
+    for message in result.calibration.warnings + result.levels.warnings:
+        warn(message)

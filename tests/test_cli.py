@@ -1,0 +1,221 @@
+"""The command line, through click's CliRunner: exit codes, messages, effects."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+import soundfile as sf
+from click.testing import CliRunner
+
+from bandmeter.calibration import Calibration
+from bandmeter.cli import cli
+from bandmeter.signals import fade, sine
+
+FS = 48000
+
+
+def run(*args: str):
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+@pytest.fixture()
+def tone_file(tmp_path):
+    # a 94 dB calibrator recorded at -26 dBFS: full-scale level 120.00 dB (bandmeter's
+    # convention: full-scale sine = full-scale level; 94 - (-26) = 120)
+    x = sine(FS, 1000.0, 6.0, 10 ** (-26 / 20)) * fade(6 * FS, FS, 0.5, 0.5)
+    path = tmp_path / "cal.wav"
+    sf.write(path, x, FS, subtype="PCM_24")
+    return path
+
+
+@pytest.fixture()
+def site_file(tmp_path):
+    # 3 s of a 1 kHz sine at -40 dBFS (80 dB with the 120 dB chain above)
+    path = tmp_path / "site.wav"
+    sf.write(path, sine(FS, 1000.0, 3.0, 10 ** (-40 / 20)), FS, subtype="PCM_24")
+    return path
+
+
+def test_every_command_has_help_with_an_example():
+    for name, command in cli.commands.items():
+        result = run(name, "--help")
+        assert result.exit_code == 0, name
+        assert "Example" in result.output, name
+        assert command.help, name
+
+
+def test_calibrate_json_and_save(tmp_path, tone_file):
+    out = tmp_path / "day1.cal.json"
+    result = run("calibrate", tone_file, "--level", "94", "--json", "--save", out)
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.stdout)
+    assert data["full_scale_level_db"] == pytest.approx(120.0, abs=0.02)
+    assert data["frequency_hz"] == pytest.approx(1000.0, abs=0.1)
+    assert "stability_db" in data
+    assert Calibration.load(out).full_scale_level_db == pytest.approx(120.0, abs=0.02)
+    again = run("calibrate", tone_file, "--level", "94", "--save", out)
+    assert again.exit_code == 1
+    assert "already exists; use --force" in again.stderr
+    assert run("calibrate", tone_file, "--level", "94", "--save", out, "--force").exit_code == 0
+
+
+def test_calibrate_drift(tmp_path, tone_file):
+    x, _ = sf.read(tone_file)
+    post = tmp_path / "post.wav"
+    sf.write(post, x * 10 ** (0.7 / 20), FS, subtype="PCM_24")  # 0.7 dB more sensitive
+    result = run("calibrate", tone_file, "--level", "94", "--after", post, "--json")
+    assert result.exit_code == 0
+    assert json.loads(result.stdout)["drift_db"] == pytest.approx(0.7, abs=0.02)
+    # more than 0.5 dB drift is warned about (common practice for field surveys)
+    assert "warning:" in result.stderr and "drift" in result.stderr
+
+
+def _written(path, data: bytes):
+    path.write_bytes(data)
+    return path
+
+
+@pytest.mark.parametrize(
+    ("make", "message"),
+    [
+        (lambda d: d / "missing.wav", "no such file"),
+        (lambda d: d, "is a folder"),
+        (lambda d: _written(d / "empty.wav", b""), "file is empty"),
+        (lambda d: _written(d / "notes.wav", b"not audio\n" * 50), "not a readable audio file"),
+    ],
+)
+def test_bad_input_is_one_line_and_nonzero(tmp_path, make, message):
+    path = make(tmp_path)
+    for args in (("info", path), ("levels", path, "--full-scale-level", "120"),
+                 ("calibrate", path, "--level", "94")):
+        result = run(*args)
+        assert result.exit_code == 1, args
+        assert message in result.stderr
+        assert "Traceback" not in result.output + result.stderr
+        assert len(result.stderr.strip().splitlines()) == 1
+
+
+def test_zero_length_and_unsupported_and_channel(tmp_path, site_file):
+    zero = tmp_path / "zero.wav"
+    sf.write(zero, np.zeros(0), FS)
+    lossy = tmp_path / "site.ogg"
+    sf.write(lossy, np.zeros(FS), FS)
+    cases = [
+        (("levels", zero, "--full-scale-level", "120"), "contains no audio samples"),
+        (("levels", lossy, "--full-scale-level", "120"), "unsupported container 'OGG'"),
+        (("levels", site_file, "--full-scale-level", "120", "--channel", "2"),
+         "channel 2 out of range"),
+    ]
+    for args, message in cases:
+        result = run(*args)
+        assert result.exit_code == 1
+        assert message in result.stderr
+
+
+def test_calibration_without_tone_fails_cleanly(tmp_path):
+    path = tmp_path / "wind.wav"
+    sf.write(path, np.random.default_rng(0).standard_normal(4 * FS) * 0.01, FS)
+    result = run("calibrate", path, "--level", "94")
+    assert result.exit_code == 1
+    assert "no calibrator tone" in result.stderr
+    assert "Traceback" not in result.stderr
+
+
+def test_debug_shows_the_traceback(tmp_path):
+    result = run("--debug", "info", tmp_path / "missing.wav")
+    assert result.exit_code != 0
+    assert result.exception is not None  # re-raised for the traceback
+
+
+def test_levels_refuses_without_calibration(site_file):
+    result = run("levels", site_file)
+    assert result.exit_code == 1
+    assert "no calibration given" in result.stderr
+
+
+def test_levels_json(site_file, tone_file):
+    result = run("levels", site_file, "--cal-tone", tone_file, "--cal-level", "94",
+                 "--interval", "1s", "--json")
+    assert result.exit_code == 0, result.stderr
+    data = json.loads(result.stdout)
+    for key in ("file", "sample_rate", "duration_s", "calibration", "warnings", "overall",
+                "intervals"):
+        assert key in data
+    # -40 dBFS with a 120 dB chain -> 80.0 dB (full-scale-level convention)
+    assert data["overall"]["LAeq"] == pytest.approx(80.0, abs=0.03)
+    assert len(data["intervals"]) == 3
+    assert {"start_s", "duration_s", "LAeq", "LAF90", "LCpeak"} <= set(data["intervals"][0])
+
+
+def test_levels_dbfs_keys(site_file):
+    result = run("levels", site_file, "--dbfs", "--json")
+    assert result.exit_code == 0
+    overall = json.loads(result.stdout)["overall"]
+    assert "LAeq" not in overall
+    assert overall["LAeq_dBFS"] == pytest.approx(-40.0, abs=0.01)  # full-scale sine = 0 dBFS
+
+
+def test_levels_csv_atomic_and_no_overwrite(tmp_path, site_file):
+    out = tmp_path / "levels.csv"
+    result = run("levels", site_file, "--full-scale-level", "120", "--interval", "1s",
+                 "-o", out)
+    assert result.exit_code == 0, result.stderr
+    lines = out.read_text().splitlines()
+    header = lines[0].split(",")
+    assert {"interval", "start_s", "LAeq", "LAFmax", "LAF90"} <= set(header)
+    assert len(lines) == 1 + 1 + 3  # header, whole file, three intervals
+    first = dict(zip(header, lines[1].split(","), strict=True))
+    assert first["interval"] == "all"
+    assert float(first["LAeq"]) == pytest.approx(80.0, abs=0.03)
+    before = out.read_text()
+    again = run("levels", site_file, "--full-scale-level", "120", "-o", out)
+    assert again.exit_code == 1
+    assert "already exists" in again.stderr
+    assert out.read_text() == before
+
+
+def test_levels_terminal_table(site_file):
+    result = run("levels", site_file, "--full-scale-level", "120", "--interval", "1s")
+    assert result.exit_code == 0
+    assert "Whole recording" in result.stdout and "Intervals (3)" in result.stdout
+    assert "LAF90" in result.stdout
+
+
+def test_bad_options(site_file):
+    cases = [
+        (("--interval", "1y"), "cannot read duration"),
+        (("--percentiles", "10,abc"), "percentiles must be numbers"),
+        (("--percentiles", "100"), "0 < N < 100"),
+        (("--start", "2026-05-14T22:00:00"), "needs a time zone"),
+    ]
+    for extra, message in cases:
+        result = run("levels", site_file, "--full-scale-level", "120", *extra)
+        assert result.exit_code == 1, extra
+        assert message in result.stderr, (extra, result.stderr)
+    both = run("levels", site_file, "--full-scale-level", "120", "--cal", "x.json")
+    assert both.exit_code == 1 and "give one calibration source" in both.stderr
+
+
+def test_clock_times_on_intervals(site_file):
+    result = run("levels", site_file, "--full-scale-level", "120", "--interval", "1s",
+                 "--start", "2026-05-14T23:59:59+01:00", "--json")
+    intervals = json.loads(result.stdout)["intervals"]
+    assert [iv["start_time"] for iv in intervals] == [
+        "2026-05-14T23:59:59+01:00", "2026-05-15T00:00:00+01:00", "2026-05-15T00:00:01+01:00"]
+
+
+def test_demo_recovers_its_known_scale(tmp_path):
+    out = tmp_path / "demo"
+    result = run("demo", "--out", out)
+    assert result.exit_code == 0, result.stderr
+    cal = Calibration.load(out / "mp2.cal.json")
+    # the demo synthesises a 120.0 dB chain and a +0.15 dB drift (demo.py constants)
+    assert cal.full_scale_level_db == pytest.approx(120.0, abs=0.02)
+    assert cal.drift_db == pytest.approx(0.15, abs=0.02)
+    assert "Results are indicative" in result.stdout
+    assert run("demo", "--out", out).exit_code == 1  # no overwrite without --force
+    assert run("demo", "--out", out, "--force").exit_code == 0
+    assert math.isfinite(cal.stability_db)
