@@ -136,3 +136,27 @@ def test_channel_type_error(tmp_path):
     sf.write(path, _sine(100), FS)
     with pytest.raises(TypeError):
         Recording(path, channel="1")
+
+
+FIXTURES = __import__("pathlib").Path(__file__).resolve().parent.parent / "fixtures"
+
+
+@pytest.mark.parametrize(
+    ("name", "fs", "channel", "dbfs"),
+    [
+        ("tone_pcm16.wav", 48000, 1, -20.0),
+        ("tone_pcm24.wav", 48000, 1, -20.0),
+        ("tone_float.wav", 44100, 1, -20.0),
+        ("tone_pcm24.flac", 48000, 1, -20.0),
+        ("stereo_rf64.wav", 48000, 1, -20.0),
+        ("stereo_rf64.wav", 48000, 2, -30.0),
+    ],
+)
+def test_committed_fixtures_read_their_known_level(name, fs, channel, dbfs):
+    # scripts/make_fixtures.py: 0.5 s of 1 kHz (500 whole cycles) at the stated dBFS;
+    # rms of a sine = amplitude / sqrt(2) (physics), full-scale sine = 0 dBFS
+    with Recording(FIXTURES / name, channel=channel) as rec:
+        assert rec.sample_rate == fs
+        x = rec.read()
+    level = 20 * np.log10(np.sqrt(2 * np.mean(x * x)))
+    assert level == pytest.approx(dbfs, abs=0.001)

@@ -219,3 +219,20 @@ def test_demo_recovers_its_known_scale(tmp_path):
     assert run("demo", "--out", out).exit_code == 1  # no overwrite without --force
     assert run("demo", "--out", out, "--force").exit_code == 0
     assert math.isfinite(cal.stability_db)
+
+
+def test_check_calibrator_pass_and_fail(tmp_path, tone_file):
+    cal = tmp_path / "chain.cal.json"
+    assert run("calibrate", tone_file, "--level", "94", "--save", cal).exit_code == 0
+    x, _ = sf.read(tone_file)
+    good, hot = tmp_path / "good.wav", tmp_path / "hot.wav"
+    sf.write(good, x * 10 ** (0.1 / 20), FS, subtype="PCM_24")  # 94.1 dB
+    sf.write(hot, x * 10 ** (0.6 / 20), FS, subtype="PCM_24")  # 94.6 dB
+    # IEC 60942:2017 class 1 level acceptance limit +-0.25 dB (from memory,
+    # REFERENCE_VALUES.md 6): 0.1 dB passes, 0.6 dB fails (exit status 1)
+    ok = run("check-calibrator", good, "--cal", cal, "--nominal", "94")
+    assert ok.exit_code == 0, ok.stderr
+    assert ok.stdout.startswith("PASS")
+    bad = run("check-calibrator", hot, "--cal", cal, "--nominal", "94")
+    assert bad.exit_code == 1
+    assert bad.stdout.startswith("FAIL")
