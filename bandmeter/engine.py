@@ -169,6 +169,7 @@ class _BandState:
     """Per-band bookkeeping of the engine."""
 
     factor: int
+    shift: int = 0  # group delay at mid-band, full-rate samples (compensated)
     position: int = 0  # samples produced so far at the band's rate
     averager: ExponentialAverager | None = None
 
@@ -192,8 +193,7 @@ class _Accumulators:
         self.grows["full_scale"] = _Grow(0, dtype=np.int64)
         self.grows["pct"] = _Grow(np.nan, self.n_percentiles)
         if self.n_bands:
-            self.grows["band_sum"] = _Grow(0.0, self.n_bands)
-            self.grows["band_count"] = _Grow(0, self.n_bands, dtype=np.int64)
+            self.grows["band_sum"] = _Grow(0.0, self.n_bands)  # sum of y^2 x decimation
             self.grows["band_max"] = _Grow(-np.inf, self.n_bands)
 
     def __getitem__(self, name: str) -> np.ndarray:
@@ -290,9 +290,11 @@ class LevelEngine:
                 self.warnings.append(
                     f"bands {names} Hz dropped: above what {self.fs:g} Hz sampling supports"
                 )
-            for factor, rate in zip(self.bank.factors, self.bank.rates_hz, strict=True):
+            for factor, rate, delay in zip(self.bank.factors, self.bank.rates_hz,
+                                           self.bank.delays_s, strict=True):
                 averager = ExponentialAverager(rate, BAND_TAU_F_S) if settings.band_max else None
-                self.band_states.append(_BandState(int(factor), 0, averager))
+                shift = int(round(delay * self.fs))
+                self.band_states.append(_BandState(int(factor), shift, 0, averager))
         self.acc = _Accumulators(len(settings.percentiles), len(self.band_states))
         self._hist_proto = LevelHistogram(settings.histogram_resolution_db, -400.0, 60.0)
         self._hist_interval = -1
@@ -409,30 +411,60 @@ class LevelEngine:
                 self.acc.ensure(k)
                 self.acc[name][k] = max(self.acc[name][k], value)
 
-    def _process_bands(self, outputs: list[np.ndarray]) -> None:
+    def _process_bands(self, outputs: list[np.ndarray], limit: int | None = None) -> None:
+        """Add band outputs to their intervals.
+
+        Band sample ``m`` of a band decimated by ``d`` is assigned to the full-rate time
+        ``m d - shift``, ``shift`` being the band's group delay at mid-band: the energy goes
+        to the interval where the sound happened, not where the slower low-band filters
+        deliver it. Times before 0 (the filters filling) count in the first interval; with
+        ``limit`` (the end flush) times at or after ``limit`` count in the last interval.
+        """
         acc = self.acc
+        settle = self.settle_samples
         for j, (y, state) in enumerate(zip(outputs, self.band_states, strict=True)):
             m = len(y)
             if m == 0:
                 continue
-            d = state.factor
-            j0 = state.position
-            # full-rate boundaries inside the band stream's span, mapped to the band rate
-            full = self.plan.boundaries_between(j0 * d, (j0 + m) * d)
-            split = np.unique(-(-full // d) - j0)  # ceil(b / d) - j0
+            d, shift, j0 = state.factor, state.shift, state.position
+            lo_t = max(j0 * d - shift, 0)
+            hi_t = max((j0 + m) * d - shift, lo_t + 1)
+            if limit is not None:
+                hi_t = min(hi_t, limit)
+                lo_t = min(lo_t, hi_t - 1)
+            full = self.plan.boundaries_between(lo_t, hi_t)
+            split = np.unique(-(-(full + shift) // d) - j0)  # first band sample at/after b
             split = split[(split > 0) & (split < m)]
             seg = np.concatenate(([0], split)).astype(np.intp)
-            ids = self.plan.interval_index((j0 + seg) * d)
+            times = np.clip((j0 + seg) * d - shift, lo_t, hi_t - 1)
+            ids = self.plan.interval_index(times)
             acc.ensure(int(ids[-1]))
             y2 = y * y
-            acc["band_sum"][ids, j] += np.add.reduceat(y2, seg)
-            acc["band_count"][ids, j] += np.diff(np.append(seg, m))
+            acc["band_sum"][ids, j] += np.add.reduceat(y2, seg) * d
             if state.averager is not None:
                 env = state.averager.process(y2)
+                if (j0 * d - shift) < settle:  # no band maximum from the settling time
+                    first = max(0, min(m, -(-(settle + shift) // d) - j0))
+                    env = env.copy()
+                    env[:first] = 0.0
                 acc["band_max"][ids, j] = np.maximum(
                     acc["band_max"][ids, j], np.maximum.reduceat(env, seg)
                 )
             state.position += m
+
+    def _flush_bands(self) -> None:
+        """Run the bank on zeros after the end so the delayed band energy is counted."""
+        if self.bank is None or self.position == 0:
+            return
+        longest = max(state.shift for state in self.band_states)
+        largest = max(state.factor for state in self.band_states)
+        n = 2 * longest + int(0.5 * self.fs)
+        n = -(-n // largest) * largest
+        zeros = np.zeros(min(n, 65536))
+        while n > 0:
+            chunk = zeros[: min(n, zeros.size)]
+            self._process_bands(self.bank.process(chunk), limit=self.position)
+            n -= chunk.size
 
     def finish(self) -> None:
         """Flush the detectors at the end of the recording."""
@@ -440,6 +472,7 @@ class LevelEngine:
             return
         self._close_histogram()
         self._store_peaks(self.peak_c.finish(), self.peak_z.finish())
+        self._flush_bands()
         self._finished = True
 
     # -- results ----------------------------------------------------------------------------
@@ -499,7 +532,6 @@ class LevelEngine:
         }
         if self.band_states:
             overall_rows["band_sum"] = rows["band_sum"].sum(axis=0, keepdims=True)
-            overall_rows["band_count"] = rows["band_count"].sum(axis=0, keepdims=True)
             overall_rows["band_max"] = rows["band_max"].max(axis=0, keepdims=True)
         overall = self._row(-1, 0, int(overall_rows["count"][0]), None, overall_rows, 0,
                             offset_ms, offset_peak, suffix, start_time)
@@ -571,15 +603,16 @@ class LevelEngine:
         assert self.bank is not None
         letter = self.settings.band_weighting
         out = []
+        count = int(rows["count"][r])  # full-rate samples of the interval
         for j, band in enumerate(self.bank.bands):
-            count = int(rows["band_count"][r, j])
-            ms = rows["band_sum"][r, j] / count if count else np.nan
-            levels = {f"L{letter}eq" + suffix: float(db_from_power_ratio(ms) + offset_ms)
-                      if count else math.nan}
+            # band energy (sum of y^2 times the decimation factor) per full-rate sample
+            ms = rows["band_sum"][r, j] / count if count else math.nan
+            levels = {f"L{letter}eq" + suffix: float(db_from_power_ratio(ms) + offset_ms)}
             if self.settings.band_max:
-                levels[f"L{letter}Fmax" + suffix] = float(
-                    db_from_power_ratio(rows["band_max"][r, j]) + offset_ms
-                ) if count else math.nan
+                peak = rows["band_max"][r, j]
+                levels[f"L{letter}Fmax" + suffix] = (
+                    math.nan if math.isinf(peak) else float(db_from_power_ratio(peak) + offset_ms)
+                )
             out.append(BandLevels(band.nominal_hz, band.exact_hz, band.label, levels))
         return out
 
