@@ -44,6 +44,7 @@ from .weighting import WeightingFilter
 DEFAULT_PERCENTILES = (1.0, 5.0, 10.0, 50.0, 90.0, 95.0, 99.0)
 
 #: F time constant for band maxima, s (IEC 61672-1: F = 0.125 s).
+MIN_BANDWIDTH_TIME = 10.0  # B x T below which band levels are flagged
 BAND_TAU_F_S = 0.125
 
 _TEN_LG_2 = 10.0 * math.log10(2.0)
@@ -295,6 +296,7 @@ class LevelEngine:
                 averager = ExponentialAverager(rate, BAND_TAU_F_S) if settings.band_max else None
                 shift = int(round(delay * self.fs))
                 self.band_states.append(_BandState(int(factor), shift, 0, averager))
+            self._warn_slow_bands(total_frames)
         self.acc = _Accumulators(len(settings.percentiles), len(self.band_states))
         self._hist_proto = LevelHistogram(settings.histogram_resolution_db, -400.0, 60.0)
         self._hist_interval = -1
@@ -410,6 +412,28 @@ class LevelEngine:
             for k, value in peaks.items():
                 self.acc.ensure(k)
                 self.acc[name][k] = max(self.acc[name][k], value)
+
+    def _warn_slow_bands(self, total_frames: int | None) -> None:
+        """Warn when bands are too narrow for the interval (or the recording).
+
+        A band of bandwidth B responds in about 1/B seconds, and the Leq of noise over T
+        seconds scatters by about 4.34 / sqrt(B T) dB; below B T = 10 (common practice, no
+        source) band levels blur across interval boundaries and scatter by more than 1.4 dB.
+        """
+        assert self.bank is not None
+        span = self.interval_samples if self.interval_samples is not None else total_frames
+        if span is None:
+            return
+        span_s = span / self.fs
+        narrow = [band for band in self.bank.bands
+                  if (band.upper_hz - band.lower_hz) * span_s < MIN_BANDWIDTH_TIME]
+        if narrow:
+            what = "interval" if self.interval_samples is not None else "recording"
+            self.warnings.append(
+                f"bands up to {narrow[-1].label} Hz are too narrow for a {span_s:g} s {what} "
+                f"(bandwidth x time < {MIN_BANDWIDTH_TIME:g}): their levels blur in time and "
+                f"scatter; use a longer {what} for them"
+            )
 
     def _process_bands(self, outputs: list[np.ndarray], limit: int | None = None) -> None:
         """Add band outputs to their intervals.

@@ -216,6 +216,15 @@ def test_demo_recovers_its_known_scale(tmp_path):
     assert cal.full_scale_level_db == pytest.approx(120.0, abs=0.02)
     assert cal.drift_db == pytest.approx(0.15, abs=0.02)
     assert "Results are indicative" in result.stdout
+    # the chiller hum is synthesised at 55.0 dB (demo.CHILLER_DB); in the first 10 s its
+    # 0.13 Hz wobble adds 0.07 dB (analytic mean of (1 + 0.05 sin)^2) and the traffic
+    # noise in the 100 Hz band (about 37 dB) under 0.1 dB, so the band reads 55.0-55.3 dB
+    lines = (out / "mp2_night_bands.csv").read_text().splitlines()
+    header = lines[0].split(",")
+    rows = [dict(zip(header, line.split(","), strict=True)) for line in lines[1:]]
+    hum = next(r for r in rows if r["interval"] == "0" and r["band"] == "100")
+    assert 55.0 <= float(hum["LZeq"]) <= 55.3
+    assert "loudest band: 100 Hz" in result.stdout
     assert run("demo", "--out", out).exit_code == 1  # no overwrite without --force
     assert run("demo", "--out", out, "--force").exit_code == 0
     assert math.isfinite(cal.stability_db)
@@ -236,3 +245,112 @@ def test_check_calibrator_pass_and_fail(tmp_path, tone_file):
     bad = run("check-calibrator", hot, "--cal", cal, "--nominal", "94")
     assert bad.exit_code == 1
     assert bad.stdout.startswith("FAIL")
+
+
+@pytest.fixture()
+def two_tone_file(tmp_path):
+    # 4 s of two sines at -40 dBFS each (80 dB with a 120 dB full-scale level): one at the
+    # exact 1 kHz mid-band, one at the exact 125 Hz mid-band frequency 1000 * 10^(-0.9)
+    # (IEC 61260-1 base-10 formula, REFERENCE_VALUES.md)
+    f125 = 1000.0 * 10 ** -0.9
+    x = sine(FS, 1000.0, 4.0, 10 ** (-40 / 20)) + sine(FS, f125, 4.0, 10 ** (-40 / 20))
+    path = tmp_path / "two_tone.wav"
+    sf.write(path, x, FS, subtype="FLOAT")
+    return path
+
+
+def _band(bands, label):
+    return next(b for b in bands if b["label"] == label)
+
+
+def test_levels_bands_json(two_tone_file):
+    result = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "third",
+                 "--interval", "2s", "--band-max", "--json")
+    assert result.exit_code == 0, result.stderr
+    data = json.loads(result.stdout)
+    bands = data["overall"]["bands"]
+    # default one-third-octave range 20 Hz - 20 kHz: 31 bands at 48 kHz (IEC 61260-1
+    # nominal series 20, 25, 31.5 ... 20k)
+    assert [b["nominal_hz"] for b in bands][:4] == [20.0, 25.0, 31.5, 40.0]
+    assert len(bands) == 31 and bands[-1]["nominal_hz"] == 20000.0
+    for b in bands:
+        assert {"nominal_hz", "exact_hz", "LZeq", "LZFmax"} <= set(b)
+    # a sine at mid-band passes with 0 dB relative attenuation (class 1 limit +-0.4 dB
+    # at mid-band, IEC 61260-1 Table 1; the bank is far better, see test_filterbank)
+    assert _band(bands, "1k")["LZeq"] == pytest.approx(80.0, abs=0.05)
+    assert _band(bands, "125")["LZeq"] == pytest.approx(80.0, abs=0.05)
+    # steady sine: the F-weighted maximum equals the Leq (physics: 1 kHz ripple of an
+    # exponential average with 125 ms is < 0.01 dB)
+    assert _band(bands, "1k")["LZFmax"] == pytest.approx(80.0, abs=0.05)
+    # a band two one-third octaves away sees only the filter skirts (class 1 minimum
+    # attenuation at one octave band away is 17.5 dB; two thirds away is well below)
+    assert _band(bands, "630")["LZeq"] < 60.0
+    assert len(data["intervals"]) == 2
+    for iv in data["intervals"]:
+        assert _band(iv["bands"], "1k")["LZeq"] == pytest.approx(80.0, abs=0.05)
+
+
+def test_levels_band_weighting_keys_and_values(two_tone_file):
+    result = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "third",
+                 "--band-weighting", "A", "--json")
+    assert result.exit_code == 0, result.stderr
+    bands = json.loads(result.stdout)["overall"]["bands"]
+    assert "LAeq" in bands[0] and "LZeq" not in bands[0]
+    # IEC 61672-1 Table 3: A weighting 0.0 dB at 1 kHz, -16.1 dB at 125 Hz (table values
+    # are rounded to 0.1 dB, hence 0.06 dB)
+    assert _band(bands, "1k")["LAeq"] == pytest.approx(80.0, abs=0.05)
+    assert _band(bands, "125")["LAeq"] == pytest.approx(80.0 - 16.1, abs=0.06)
+
+
+def test_levels_band_csv_wide_and_tidy(tmp_path, two_tone_file):
+    wide = tmp_path / "wide.csv"
+    result = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "octave",
+                 "--interval", "2s", "-o", wide)
+    assert result.exit_code == 0, result.stderr
+    lines = wide.read_text().splitlines()
+    header = lines[0].split(",")
+    # octave default 31.5 Hz - 16 kHz: ten bands, one column each
+    labels = ["31.5", "63", "125", "250", "500", "1k", "2k", "4k", "8k", "16k"]
+    assert [h for h in header if h.startswith("LZeq_")] == [f"LZeq_{b}" for b in labels]
+    assert len(lines) == 1 + 1 + 2
+    row = dict(zip(header, lines[1].split(","), strict=True))
+    assert float(row["LZeq_1k"]) == pytest.approx(80.0, abs=0.05)
+
+    tidy = tmp_path / "tidy.csv"
+    result = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "octave",
+                 "--interval", "2s", "--tidy", "-o", tidy)
+    assert result.exit_code == 0, result.stderr
+    lines = tidy.read_text().splitlines()
+    header = lines[0].split(",")
+    assert {"interval", "band", "nominal_hz", "exact_hz", "LZeq"} <= set(header)
+    assert len(lines) == 1 + 3 * len(labels)  # (whole file + two intervals) x bands
+    rows = [dict(zip(header, line.split(","), strict=True)) for line in lines[1:]]
+    assert [r["band"] for r in rows[:len(labels)]] == labels
+    assert {r["interval"] for r in rows} == {"all", "0", "1"}
+
+
+def test_levels_band_terminal_table_and_dbfs(two_tone_file):
+    result = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "octave")
+    assert result.exit_code == 0, result.stderr
+    assert "Bands, whole recording" in result.stdout
+    assert "16k" in result.stdout and "LZeq" in result.stdout
+    raw = run("levels", two_tone_file, "--dbfs", "--bands", "octave", "--json")
+    assert raw.exit_code == 0, raw.stderr
+    band = _band(json.loads(raw.stdout)["overall"]["bands"], "1k")
+    assert "LZeq" not in band
+    assert band["LZeq_dBFS"] == pytest.approx(-40.0, abs=0.05)
+
+
+def test_band_option_errors(tmp_path, two_tone_file):
+    cases = [
+        (("--bands", "5"), "--bands must be"),
+        (("--fmin", "50"), "need --bands"),
+        (("--band-max",), "need --bands"),
+        (("--bands", "third", "--tidy"), "--tidy needs"),
+        (("--bands", "third", "--fmin", "2000", "--fmax", "1000"), "fmin"),
+    ]
+    for extra, message in cases:
+        result = run("levels", two_tone_file, "--full-scale-level", "120", *extra)
+        assert result.exit_code == 1, extra
+        assert message in result.stderr, (extra, result.stderr)
+        assert "Traceback" not in result.output

@@ -116,22 +116,34 @@ def test_low_sample_rate_drops_bands_and_warns():
         LevelEngine(8000, AnalysisSettings(bands=3, fmin_hz=5000, fmax_hz=20000))
 
 
-_X = None
+def test_bands_too_narrow_for_the_interval_are_flagged():
+    # B T < 10 (common practice, no source): at 1 s the one-third-octave band of 40 Hz
+    # (B = 9.2 Hz by IEC 61260-1 edges) is flagged and the 50 Hz band (B = 11.6 Hz) is not
+    from bandmeter.engine import LevelEngine
+
+    engine = LevelEngine(FS, AnalysisSettings(bands=3, interval_s=1.0))
+    assert any("bands up to 40 Hz are too narrow" in w for w in engine.warnings)
+    quiet = LevelEngine(FS, AnalysisSettings(bands=3, interval_s=60.0))
+    assert not any("too narrow" in w for w in quiet.warnings)
 
 
-def _signal():
-    global _X
-    if _X is None:
-        _X = 0.05 * pink_noise(int(3.2 * FS), FS, seed=21)
-    return _X
+_REFERENCE: dict[str, object] = {}
+
+
+def _signal_and_reference():
+    """3.2 s of pink noise and its band results in the default block size (computed once)."""
+    if not _REFERENCE:
+        x = 0.05 * pink_noise(int(3.2 * FS), FS, seed=21)
+        base = AnalysisSettings(bands=3, interval_s=0.5, band_max=True)
+        _REFERENCE["x"] = x
+        _REFERENCE["ref"] = analyse_array(x, FS, base, L_FS)[1]
+    return _REFERENCE["x"], _REFERENCE["ref"]
 
 
 @settings(max_examples=6, deadline=None)
 @given(st.integers(min_value=97, max_value=150_000))
 def test_band_results_do_not_depend_on_block_size(block):
-    x = _signal()
-    base = AnalysisSettings(bands=3, interval_s=0.5, band_max=True)
-    ref = analyse_array(x, FS, base, L_FS)[1]
+    x, ref = _signal_and_reference()
     got = analyse_array(x, FS, AnalysisSettings(bands=3, interval_s=0.5, band_max=True,
                                                 block_frames=block), L_FS)[1]
     for a, b in zip(ref, got, strict=True):

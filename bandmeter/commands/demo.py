@@ -33,8 +33,12 @@ def demo_command(out_dir: str | None, force: bool) -> None:
                f"{CHAIN_FULL_SCALE_DB:.1f} dB full scale and drifts {CHAIN_DRIFT_DB:+.2f} dB)")
     click.echo(calibration_lines(result.calibration))
     click.echo("")
-    click.echo("2. Sound levels of the night recording, 10 s intervals")
+    click.echo("2. Sound levels and one-third-octave bands of the night recording, "
+               "10 s intervals")
     click.echo(render_levels(result.levels))
+    loudest = max(result.levels.overall.bands, key=lambda band: band.levels["LZeq"])
+    remark = " (the chiller's hum)" if loudest.label == "100" else ""
+    click.echo(f"  loudest band: {loudest.label} Hz at {loudest.levels['LZeq']:.1f} dB{remark}")
     click.echo("")
     click.echo("Files written:")
     for role, path in result.files.items():

@@ -111,6 +111,8 @@ def render_levels(result: LevelResult) -> str:
         lines.append("")
         lines.append("Bands, whole recording (dB)")
         lines.append(table(("band Hz", "exact Hz", *band_keys), rows, indent="  "))
+        if len(result.intervals) > 1:
+            lines.append("  (band levels per interval: --json, or -o with or without --tidy)")
     return "\n".join(lines)
 
 
