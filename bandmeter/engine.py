@@ -25,7 +25,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Sequence
 from dataclasses import asdict, dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime
 from typing import Any
 
 import numpy as np
@@ -36,7 +36,15 @@ from .intervals import IntervalPlan
 from .levels import LevelHistogram, db_from_power_ratio
 from .peak import TruePeakMeter
 from .provenance import file_sha256, tool_stamp
-from .results import DBFS_SUFFIX, UNIT_DBFS, UNIT_SPL, BandLevels, IntervalResult, LevelResult
+from .results import (
+    DBFS_SUFFIX,
+    UNIT_DBFS,
+    UNIT_SPL,
+    BandInfo,
+    IntervalResult,
+    IntervalSeries,
+    LevelResult,
+)
 from .timeweight import ExponentialAverager, TimeWeighting
 from .weighting import WeightingFilter
 
@@ -508,7 +516,7 @@ class LevelEngine:
 
     def results(
         self, level_offset_db: float, calibrated: bool, start_time: datetime | None = None
-    ) -> tuple[IntervalResult, list[IntervalResult]]:
+    ) -> tuple[IntervalResult, IntervalSeries]:
         """Whole-recording and per-interval results.
 
         Parameters
@@ -519,6 +527,13 @@ class LevelEngine:
             False gives keys with the ``_dBFS`` suffix.
         start_time : datetime, optional
             Clock time of the first sample (timezone-aware), for interval start times.
+
+        Returns
+        -------
+        overall : IntervalResult
+            The whole recording (``index`` -1).
+        intervals : IntervalSeries
+            The intervals, held as columns (rows are built on access).
         """
         if not self._finished:
             self.finish()
@@ -526,19 +541,10 @@ class LevelEngine:
         if k == 0:
             raise SettingsError("no samples were analysed")
         acc = self.acc
-        offset_ms = level_offset_db + _TEN_LG_2  # 10 lg(2 ms) + L_fs
-        offset_peak = level_offset_db + _TEN_LG_2  # 20 lg(peak) + 10 lg 2 + L_fs
-        suffix = "" if calibrated else DBFS_SUFFIX
         rows = {name: acc[name][:k] for name in acc.grows}
-        intervals = []
-        nominal = self.interval_samples
-        for idx in range(k):
-            start = self.plan.interval_start(idx)
-            count = int(rows["count"][idx])
-            intervals.append(
-                self._row(idx, start, count, nominal, rows, idx, offset_ms, offset_peak,
-                          suffix, start_time)
-            )
+        starts = np.array([self.plan.interval_start(idx) for idx in range(k)], dtype=np.int64)
+        intervals = self._series(rows, starts, self.interval_samples, level_offset_db,
+                                 calibrated, start_time, 0)
         overall_rows = {
             "sum_a2": rows["sum_a2"].sum(keepdims=True),
             "sum_c2": rows["sum_c2"].sum(keepdims=True),
@@ -557,88 +563,83 @@ class LevelEngine:
         if self.band_states:
             overall_rows["band_sum"] = rows["band_sum"].sum(axis=0, keepdims=True)
             overall_rows["band_max"] = rows["band_max"].max(axis=0, keepdims=True)
-        overall = self._row(-1, 0, int(overall_rows["count"][0]), None, overall_rows, 0,
-                            offset_ms, offset_peak, suffix, start_time)
+        overall = self._series(overall_rows, np.zeros(1, dtype=np.int64), None,
+                               level_offset_db, calibrated, start_time, -1)[0]
         return overall, intervals
 
-    def _row(
+    def _series(
         self,
-        index: int,
-        start: int,
-        count: int,
-        nominal: int | None,
         rows: dict[str, np.ndarray],
-        r: int,
-        offset_ms: float,
-        offset_peak: float,
-        suffix: str,
+        starts: np.ndarray,
+        nominal: int | None,
+        level_offset_db: float,
+        calibrated: bool,
         start_time: datetime | None,
-    ) -> IntervalResult:
+        index_offset: int,
+    ) -> IntervalSeries:
+        """Levels of accumulator rows, as an :class:`IntervalSeries` (vectorised)."""
+        offset_ms = level_offset_db + _TEN_LG_2  # 10 lg(2 ms) + L_fs
+        offset_peak = level_offset_db + _TEN_LG_2  # 20 lg(peak) + 10 lg 2 + L_fs
+        suffix = "" if calibrated else DBFS_SUFFIX
+        count = rows["count"].astype(np.float64)
+        n = np.maximum(count, 1.0)
+
         # extremes of an interval that holds no settled sample stay at their +-inf start
         # values: report them as NaN (no reading), not as a level
-        def ms_level(value: float) -> float:
-            if math.isinf(value):
-                return math.nan
-            return float(db_from_power_ratio(value) + offset_ms)
+        def ms_level(value: np.ndarray) -> np.ndarray:
+            with np.errstate(divide="ignore", invalid="ignore"):  # -inf: no reading
+                level = db_from_power_ratio(value) + offset_ms
+            return np.where(np.isinf(value), np.nan, level)
 
-        def peak_level(value: float) -> float:
-            if math.isinf(value):
-                return math.nan
-            return float(20.0 * np.log10(value) + offset_peak) if value > 0 else -math.inf
+        def peak_level(value: np.ndarray) -> np.ndarray:
+            with np.errstate(divide="ignore", invalid="ignore"):  # -inf: no reading
+                level = 20.0 * np.log10(value) + offset_peak
+            return np.where(np.isinf(value), np.nan, level)
 
-        duration = count / self.fs
-        metrics: dict[str, float] = {}
-        n = max(count, 1)
-        metrics["LAeq"] = ms_level(rows["sum_a2"][r] / n)
-        metrics["LCeq"] = ms_level(rows["sum_c2"][r] / n)
-        metrics["LZeq"] = ms_level(rows["sum_z2"][r] / n)
-        metrics["LAE"] = ms_level(rows["sum_a2"][r] / self.fs)
-        metrics["LAFmax"] = ms_level(rows["max_f"][r])
-        metrics["LAFmin"] = ms_level(rows["min_f"][r])
-        metrics["LASmax"] = ms_level(rows["max_s"][r])
-        metrics["LASmin"] = ms_level(rows["min_s"][r])
-        metrics["LAImax"] = ms_level(rows["max_i"][r])
-        metrics["LCpeak"] = peak_level(rows["peak_c"][r])
-        metrics["LZpeak"] = peak_level(rows["peak_z"][r])
-        for p, value in zip(self.settings.percentiles, rows["pct"][r], strict=True):
-            metrics[percentile_key(p)] = float(value) + offset_ms
-        if suffix:
-            metrics = {key + suffix: value for key, value in metrics.items()}
-        bands = None
+        columns = {
+            "LAeq": ms_level(rows["sum_a2"] / n),
+            "LCeq": ms_level(rows["sum_c2"] / n),
+            "LZeq": ms_level(rows["sum_z2"] / n),
+            "LAE": ms_level(rows["sum_a2"] / self.fs),
+            "LAFmax": ms_level(rows["max_f"]),
+            "LAFmin": ms_level(rows["min_f"]),
+            "LASmax": ms_level(rows["max_s"]),
+            "LASmin": ms_level(rows["min_s"]),
+            "LAImax": ms_level(rows["max_i"]),
+            "LCpeak": peak_level(rows["peak_c"]),
+            "LZpeak": peak_level(rows["peak_z"]),
+        }
+        for p, values in zip(self.settings.percentiles, rows["pct"].T, strict=True):
+            columns[percentile_key(p)] = values + offset_ms
+        keys = [key + suffix for key in columns]
+        bands, band_keys, band_values = None, [], None
         if self.band_states:
-            bands = self._band_rows(rows, r, offset_ms, suffix)
-        clock = None
-        if start_time is not None:
-            clock = (start_time + timedelta(seconds=start / self.fs)).isoformat()
-        return IntervalResult(
-            index=index,
-            start_s=start / self.fs,
-            duration_s=duration,
-            partial=nominal is not None and count < nominal,
-            start_time=clock,
-            full_scale_samples=int(rows["full_scale"][r]),
-            metrics=metrics,
-            bands=bands,
-        )
-
-    def _band_rows(
-        self, rows: dict[str, np.ndarray], r: int, offset_ms: float, suffix: str
-    ) -> list[BandLevels]:
-        assert self.bank is not None
-        letter = self.settings.band_weighting
-        out = []
-        count = int(rows["count"][r])  # full-rate samples of the interval
-        for j, band in enumerate(self.bank.bands):
+            assert self.bank is not None
+            bands = [BandInfo(b.nominal_hz, b.exact_hz, b.label) for b in self.bank.bands]
+            letter = self.settings.band_weighting
             # band energy (sum of y^2 times the decimation factor) per full-rate sample
-            ms = rows["band_sum"][r, j] / count if count else math.nan
-            levels = {f"L{letter}eq" + suffix: float(db_from_power_ratio(ms) + offset_ms)}
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ms = rows["band_sum"] / count[:, None]
+                planes = [np.where(count[:, None] > 0,
+                                   db_from_power_ratio(ms) + offset_ms, np.nan)]
+            band_keys = [f"L{letter}eq" + suffix]
             if self.settings.band_max:
-                peak = rows["band_max"][r, j]
-                levels[f"L{letter}Fmax" + suffix] = (
-                    math.nan if math.isinf(peak) else float(db_from_power_ratio(peak) + offset_ms)
-                )
-            out.append(BandLevels(band.nominal_hz, band.exact_hz, band.label, levels))
-        return out
+                planes.append(ms_level(rows["band_max"]))
+                band_keys.append(f"L{letter}Fmax" + suffix)
+            band_values = np.stack(planes, axis=-1)
+        return IntervalSeries(
+            start_s=starts / self.fs,
+            duration_s=count / self.fs,
+            partial=(count < nominal) if nominal is not None else np.zeros(count.size, bool),
+            full_scale_samples=rows["full_scale"],
+            metric_keys=keys,
+            metrics=np.column_stack(list(columns.values())),
+            clock_origin=start_time,
+            bands=bands,
+            band_keys=band_keys,
+            band_values=band_values,
+            index_offset=index_offset,
+        )
 
 
 def prefix_samples(fs: float, settings: AnalysisSettings) -> int:
@@ -656,7 +657,7 @@ def analyse_blocks(
     start_time: datetime | None = None,
     first_boundary: int = 0,
     total_frames: int | None = None,
-) -> tuple[LevelEngine, IntervalResult, list[IntervalResult]]:
+) -> tuple[LevelEngine, IntervalResult, IntervalSeries]:
     """Run the engine over an iterable of blocks; see :func:`analyse_file` for the file form.
 
     ``prefix`` (the first second of the stream) seeds the time weightings; without it the
@@ -679,7 +680,7 @@ def analyse_array(
     settings: AnalysisSettings | None = None,
     full_scale_level_db: float | None = None,
     start_time: datetime | None = None,
-) -> tuple[IntervalResult, list[IntervalResult]]:
+) -> tuple[IntervalResult, IntervalSeries]:
     """Analyse a signal held in memory (samples on the +-1 scale) with the streaming engine.
 
     Returns the whole-signal result and the interval results; levels in dB re 20 uPa when
@@ -758,7 +759,7 @@ def analyse_file(
             f"({info.duration_s:.3f} s): one partial interval"
         )
     if overall.full_scale_samples:
-        flagged = sum(1 for iv in intervals if iv.overload)
+        flagged = int(np.count_nonzero(intervals.full_scale_samples))
         warnings.append(
             f"{overall.full_scale_samples} sample(s) at or beyond full scale in {flagged} "
             "interval(s): possible overload, levels there may be too low; see the overload flags"

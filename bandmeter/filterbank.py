@@ -43,10 +43,12 @@ Group delay and interval boundaries
     low bands lag high bands: at 48 kHz about 0.41 s for the 20 Hz one-third-octave band and
     7.3 s for the 1 Hz band, against 0.3 ms at 10 kHz. ``FractionalOctaveBank.delays_s``
     gives the delay at each band's mid-band frequency. Output sample ``m`` of a band with
-    decimation factor ``F`` carries sample time ``m * F / fs``; an engine that assigns band
-    energy to intervals by that time therefore attributes energy up to ``delays_s`` late and
-    smears each interval boundary over roughly the filter's response time: negligible for
-    intervals of minutes, noticeable for short intervals in the lowest bands.
+    decimation factor ``F`` carries sample time ``m * F / fs``; the level engine assigns it
+    to the time ``m * F / fs - delays_s`` so band energy lands in the interval of the sound,
+    and flushes the bank with zeros at the end of a recording so the delayed energy of the
+    last moments is counted. What remains is the spread of each filter's response, about
+    1 / bandwidth: negligible for intervals of minutes, noticeable for short intervals in
+    the lowest bands (the engine warns when bandwidth x interval < 10).
 
 Speed
     The band filters dominate the cost; the compiled kernel behind ``scipy.signal.sosfilt``

@@ -9,8 +9,12 @@ uncalibrated number can never pass for a sound pressure level.
 
 from __future__ import annotations
 
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from datetime import datetime, timedelta
+from typing import Any, overload
+
+import numpy as np
 
 #: Unit label of calibrated levels.
 UNIT_SPL = "dB re 20 uPa"
@@ -89,6 +93,128 @@ class IntervalResult:
         return out
 
 
+@dataclass(frozen=True)
+class BandInfo:
+    """Identity of one band in a band table: nominal and exact mid-band frequency, label."""
+
+    nominal_hz: float
+    exact_hz: float
+    label: str
+
+
+class IntervalSeries(Sequence[IntervalResult]):
+    """Per-interval results held as columns, handed out as :class:`IntervalResult` rows.
+
+    A survey with 1 s intervals over 24 hours has 86 400 intervals, each with some twenty
+    metrics and perhaps 31 bands x 2 band metrics; as Python objects that would be gigabytes,
+    as columns it is tens of megabytes. Rows are built on access (indexing, iteration) and
+    can be dropped again, so memory stays proportional to the numbers themselves.
+
+    Parameters
+    ----------
+    start_s, duration_s : array_like of float, shape (k,)
+        Interval starts (seconds from the first sample) and true durations, s.
+    partial : array_like of bool, shape (k,)
+        Intervals shorter than the nominal interval.
+    full_scale_samples : array_like of int, shape (k,)
+        Samples at or beyond full scale per interval.
+    metric_keys : sequence of str
+        Keys of the columns of ``metrics``.
+    metrics : array_like of float, shape (k, len(metric_keys))
+        Levels, dB.
+    clock_origin : datetime, optional
+        Clock time of the first sample; interval start times are ``clock_origin + start_s``.
+    bands : sequence of BandInfo, optional
+        Bands of ``band_values`` (None: no band analysis).
+    band_keys : sequence of str
+        Keys of the last axis of ``band_values``.
+    band_values : array_like of float, shape (k, len(bands), len(band_keys))
+        Band levels, dB.
+    index_offset : int
+        Index of the first row (-1 for the whole-recording row).
+    """
+
+    def __init__(
+        self,
+        start_s: Any,
+        duration_s: Any,
+        partial: Any,
+        full_scale_samples: Any,
+        metric_keys: Sequence[str],
+        metrics: Any,
+        clock_origin: datetime | None = None,
+        bands: Sequence[BandInfo] | None = None,
+        band_keys: Sequence[str] = (),
+        band_values: Any = None,
+        index_offset: int = 0,
+    ) -> None:
+        self.start_s = np.asarray(start_s, dtype=np.float64)
+        self.duration_s = np.asarray(duration_s, dtype=np.float64)
+        self.partial = np.asarray(partial, dtype=bool)
+        self.full_scale_samples = np.asarray(full_scale_samples, dtype=np.int64)
+        self.metric_keys = tuple(metric_keys)
+        self.metrics = np.asarray(metrics, dtype=np.float64).reshape(len(self.start_s),
+                                                                      len(self.metric_keys))
+        self.clock_origin = clock_origin
+        self.bands = None if bands is None else tuple(bands)
+        self.band_keys = tuple(band_keys)
+        self.band_values = None if bands is None else np.asarray(band_values, dtype=np.float64)
+        self.index_offset = index_offset
+
+    def __len__(self) -> int:
+        return int(self.start_s.size)
+
+    @overload
+    def __getitem__(self, i: int) -> IntervalResult: ...
+
+    @overload
+    def __getitem__(self, i: slice) -> list[IntervalResult]: ...
+
+    def __getitem__(self, i: int | slice) -> IntervalResult | list[IntervalResult]:
+        if isinstance(i, slice):
+            return [self._row(j) for j in range(*i.indices(len(self)))]
+        n = len(self)
+        j = int(i) + n if i < 0 else int(i)
+        if not 0 <= j < n:
+            raise IndexError(f"interval {i} out of range ({n} intervals)")
+        return self._row(j)
+
+    def __iter__(self) -> Iterator[IntervalResult]:
+        for j in range(len(self)):
+            yield self._row(j)
+
+    def _row(self, j: int) -> IntervalResult:
+        clock = None
+        if self.clock_origin is not None:
+            clock = (self.clock_origin + timedelta(seconds=float(self.start_s[j]))).isoformat()
+        bands = None
+        if self.bands is not None:
+            assert self.band_values is not None
+            values = self.band_values[j].tolist()
+            bands = [BandLevels(b.nominal_hz, b.exact_hz, b.label,
+                                dict(zip(self.band_keys, row, strict=True)))
+                     for b, row in zip(self.bands, values, strict=True)]
+        return IntervalResult(
+            index=self.index_offset + j,
+            start_s=float(self.start_s[j]),
+            duration_s=float(self.duration_s[j]),
+            partial=bool(self.partial[j]),
+            start_time=clock,
+            full_scale_samples=int(self.full_scale_samples[j]),
+            metrics=dict(zip(self.metric_keys, self.metrics[j].tolist(), strict=True)),
+            bands=bands,
+        )
+
+    def column(self, key: str) -> np.ndarray:
+        """One metric over all intervals, dB (a read-only view)."""
+        try:
+            col = self.metrics[:, self.metric_keys.index(key)]
+        except ValueError:
+            raise KeyError(key) from None
+        col.setflags(write=False)
+        return col
+
+
 @dataclass
 class LevelResult:
     """Everything one analysis of one recording channel produced."""
@@ -99,7 +225,7 @@ class LevelResult:
     frames: int
     unit: str
     overall: IntervalResult
-    intervals: list[IntervalResult]
+    intervals: Sequence[IntervalResult]
     settings: dict[str, Any]
     calibration: dict[str, Any] | None
     recording: dict[str, Any]

@@ -15,7 +15,8 @@ into a temporary folder, it times, excluding interpreter start-up and imports:
   filters (scipy.signal.bilinear_zpk of the analog IEC 61672-1 poles), sosfilt with zi per
   block, lfilter exponentials for F and S, per-second means, maxima, minima, np.percentile
   of the F levels per second, and the sample peak (no inter-sample peak, no I); with
-  ``--bands`` also one full-rate Butterworth band-pass per band.
+  ``--bands`` also one full-rate order-4 Butterworth band-pass per band (the order of
+  bandmeter's band filters).
 
 and reports real-time factors, the ratios, and the peak memory (RSS) of each analysis, each
 run in a fresh child process so the figures do not mix.
@@ -106,8 +107,8 @@ def run_plain_scipy(path: str, bands: bool) -> float:
             fm = 1000 * 10 ** (0.1 * x)
             lo, hi = fm * 10 ** (-0.05), fm * 10 ** 0.05
             if hi < FS / 2:
-                band_sos.append(signal.butter(3, [lo, hi], btype="bandpass", fs=FS,
-                                              output="sos"))
+                band_sos.append(signal.butter(4, [lo, hi], btype="bandpass", fs=FS,
+                                              output="sos"))  # bandmeter's order
     band_zi = [np.zeros((s.shape[0], 2)) for s in band_sos]
     rows = []
     with sf.SoundFile(path) as f:
