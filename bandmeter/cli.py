@@ -7,7 +7,6 @@ in one place (:class:`_Group`); ``--debug`` shows the traceback instead.
 
 from __future__ import annotations
 
-import json
 import sys
 from typing import Any
 
@@ -15,6 +14,7 @@ import click
 
 from . import __version__
 from .errors import BandmeterError
+from .outputs import json_text
 
 EXIT_INPUT_ERROR = 1
 EXIT_INTERNAL_ERROR = 3
@@ -74,19 +74,7 @@ def cli() -> None:
 
 def echo_json(obj: object) -> None:
     """Print one JSON object (NaN/inf written as null)."""
-    click.echo(json.dumps(_json_safe(obj), indent=2, allow_nan=False))
-
-
-def _json_safe(obj: object) -> object:
-    if isinstance(obj, float):
-        return obj if obj == obj and abs(obj) != float("inf") else None
-    if isinstance(obj, dict):
-        return {str(k): _json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_safe(v) for v in obj]
-    if hasattr(obj, "item") and callable(obj.item):  # numpy scalar
-        return _json_safe(obj.item())
-    return obj
+    click.echo(json_text(obj))
 
 
 def warn(message: str) -> None:

@@ -704,6 +704,7 @@ def analyse_file(
     channel: int = 1,
     start_time: datetime | None = None,
     allow_uncalibrated: bool = False,
+    first_boundary: int = 0,
 ) -> LevelResult:
     """Analyse one channel of a recording in one streaming pass.
 
@@ -722,14 +723,69 @@ def analyse_file(
         Clock time of the first sample (timezone-aware).
     allow_uncalibrated : bool
         Accept a missing calibration and report dB re full scale.
+    first_boundary : int
+        Sample index of the first interval boundary (clock alignment; 0: intervals start
+        with the recording). The samples before it form a first, partial interval.
 
     Returns
     -------
     LevelResult
     """
+    return analyse_recordings([path], calibration, settings, channel, start_time,
+                              allow_uncalibrated, first_boundary)
+
+
+def _open_all(paths: Sequence[str], channel: int) -> list[Recording]:
+    """Open every part of a measurement; all must share rate, channels and sample format."""
+    recordings: list[Recording] = []
+    try:
+        for path in paths:
+            recordings.append(Recording(path, channel))
+            first, this = recordings[0].info, recordings[-1].info
+            for attr in ("sample_rate", "channels", "subtype"):
+                if getattr(this, attr) != getattr(first, attr):
+                    raise SettingsError(
+                        f"{path}: {attr} {getattr(this, attr)} differs from "
+                        f"{getattr(first, attr)} of {first.path}; files of different formats "
+                        "cannot be joined into one measurement"
+                    )
+    except BaseException:
+        for rec in recordings:
+            rec.close()
+        raise
+    return recordings
+
+
+def _chained_blocks(recordings: Sequence[Recording], block_frames: int) -> Iterable[np.ndarray]:
+    for rec in recordings:
+        yield from rec.blocks(block_frames)
+
+
+def analyse_recordings(
+    paths: Sequence[str],
+    calibration: Any | None,
+    settings: AnalysisSettings | None = None,
+    channel: int = 1,
+    start_time: datetime | None = None,
+    allow_uncalibrated: bool = False,
+    first_boundary: int = 0,
+    known_sha256: Sequence[str] | None = None,
+) -> LevelResult:
+    """Analyse consecutive files of one recorder as one measurement, in one streaming pass.
+
+    The files are read one after the other into the same engine, so filter states, time
+    weightings and intervals run across the file boundaries exactly as in one long file
+    (recorders split long recordings every hour or at 2 GB). With a single path this is
+    :func:`analyse_file`. Parameters as there; the result's ``file`` is the first path and
+    ``recording["parts"]`` lists every part with its frames and SHA-256. ``known_sha256``
+    (one per path) skips hashing files whose hash the caller has just computed.
+    """
     from .calibration import Calibration  # local: calibration imports audio only
 
     settings = settings or AnalysisSettings()
+    if not paths:
+        raise SettingsError("no recording given")
+    path = str(paths[0])
     if calibration is None and not allow_uncalibrated:
         raise SettingsError(
             f"{path}: no calibration given; pass --cal, --cal-tone with --cal-level, or "
@@ -739,24 +795,32 @@ def analyse_file(
         if not isinstance(calibration, Calibration):
             raise TypeError(f"calibration must be a Calibration, got {type(calibration)!r}")
         calibration.check_channel(channel)
-    with Recording(path, channel) as rec:
-        info = rec.info
-        prefix = rec.read(0, min(info.frames, prefix_samples(info.sample_rate, settings)))
+    recordings = _open_all([str(p) for p in paths], channel)
+    try:
+        info = recordings[0].info
+        frames = sum(rec.frames for rec in recordings)
+        want = min(frames, prefix_samples(info.sample_rate, settings))
+        prefix = np.concatenate([rec.read(0, min(rec.frames, want)) for rec in recordings])[:want]
         engine, overall, intervals = analyse_blocks(
-            rec.blocks(settings.block_frames),
+            _chained_blocks(recordings, settings.block_frames),
             info.sample_rate,
             settings,
             None if calibration is None else calibration.full_scale_level_db,
             info.full_scale_threshold,
             prefix=prefix,
             start_time=start_time,
-            total_frames=info.frames,
+            first_boundary=first_boundary,
+            total_frames=frames,
         )
+    finally:
+        for rec in recordings:
+            rec.close()
+    duration_s = frames / info.sample_rate
     warnings = list(engine.warnings)
-    if settings.interval_s is not None and settings.interval_s * info.sample_rate > info.frames:
+    if settings.interval_s is not None and settings.interval_s * info.sample_rate > frames:
         warnings.append(
             f"interval {settings.interval_s:g} s is longer than the recording "
-            f"({info.duration_s:.3f} s): one partial interval"
+            f"({duration_s:.3f} s): one partial interval"
         )
     if overall.full_scale_samples:
         flagged = int(np.count_nonzero(intervals.full_scale_samples))
@@ -766,18 +830,26 @@ def analyse_file(
         )
     if calibration is not None:
         warnings.extend(f"calibration: {w}" for w in calibration.warnings)
-    provenance = {**tool_stamp(), "sha256": file_sha256(path)}
+    hashes = (list(known_sha256) if known_sha256 is not None
+              else [file_sha256(rec.path) for rec in recordings])
+    recording = {**info.to_dict(), "frames": frames, "duration_s": duration_s}
+    if len(recordings) > 1:
+        recording["parts"] = [
+            {"path": rec.path, "frames": rec.frames, "sha256": sha}
+            for rec, sha in zip(recordings, hashes, strict=True)
+        ]
+    provenance = {**tool_stamp(), "sha256": hashes[0] if len(hashes) == 1 else hashes}
     return LevelResult(
         file=path,
         channel=channel,
         sample_rate=info.sample_rate,
-        frames=info.frames,
+        frames=frames,
         unit=UNIT_SPL if calibration is not None else UNIT_DBFS,
         overall=overall,
         intervals=intervals,
         settings=settings.to_dict(),
         calibration=None if calibration is None else calibration.to_dict(),
-        recording=info.to_dict(),
+        recording=recording,
         provenance=provenance,
         warnings=warnings,
     )

@@ -7,6 +7,7 @@ previous file intact, and an existing file is only replaced when ``force`` is gi
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import tempfile
 from collections.abc import Iterator
@@ -100,3 +101,21 @@ def write_bytes(path: str | os.PathLike[str], data: bytes, force: bool = False) 
     """Write a binary file atomically (see :func:`atomic_open`)."""
     with atomic_open(path, "wb", force=force) as handle:
         handle.write(data)
+
+
+def json_safe(obj: object) -> object:
+    """Plain data for strict JSON: NaN and infinities become null, numpy scalars Python."""
+    if isinstance(obj, float):
+        return obj if obj == obj and abs(obj) != float("inf") else None
+    if isinstance(obj, dict):
+        return {str(k): json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_safe(v) for v in obj]
+    if hasattr(obj, "item") and callable(obj.item):  # numpy scalar
+        return json_safe(obj.item())
+    return obj
+
+
+def json_text(obj: object, indent: int | None = 2) -> str:
+    """Strict JSON text of ``obj`` (see :func:`json_safe`)."""
+    return json.dumps(json_safe(obj), indent=indent, allow_nan=False)
