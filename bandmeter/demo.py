@@ -19,6 +19,7 @@ import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import soundfile as sf
@@ -39,6 +40,8 @@ CALIBRATOR_HZ = 1000.0
 #: Drift of the chain between the pre and post calibration, dB.
 CHAIN_DRIFT_DB = 0.15
 SITE_DURATION_S = 120.0
+#: Clock time of the site recording's first sample (invented).
+DEMO_START = "2026-05-14T23:59:45+01:00"
 SEED = 20261202
 
 FILES = {
@@ -117,6 +120,7 @@ class DemoResult:
     files: dict[str, str]
     calibration: Calibration
     levels: LevelResult
+    batch: Any = None  # BatchReport of the batch step
     notes: list[str] = field(default_factory=list)
 
 
@@ -170,4 +174,13 @@ def run_demo(out_dir: str | os.PathLike[str] | None = None, force: bool = False)
     write_csv(files["levels_csv"], wide_rows(levels), force=force)
     files["bands_csv"] = str(Path(out_dir) / FILES["bands_csv"])
     write_csv(files["bands_csv"], tidy_band_rows(levels), force=force)
-    return DemoResult(str(out_dir), files, cal, levels)
+    # the same recording as a (one-file) batch with clock-aligned 30 s intervals: the night
+    # recording started at 23:59:45 local time (invented), so the first interval is 15 s
+    from .batch import BatchOptions, run_batch
+
+    batch_dir = str(Path(out_dir) / "batch")
+    options = BatchOptions(settings=AnalysisSettings(interval_s=30.0), calibration=cal,
+                           start=DEMO_START, align=True, workers=1, force=force)
+    report = run_batch([files["site"]], batch_dir, options, progress=False)
+    files["batch"] = batch_dir
+    return DemoResult(str(out_dir), files, cal, levels, report)

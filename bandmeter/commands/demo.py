@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import csv
+
 import click
 
 from ..cli import cli, warn
-from ..demo import CALIBRATOR_DB, CHAIN_DRIFT_DB, CHAIN_FULL_SCALE_DB, run_demo
+from ..demo import CALIBRATOR_DB, CHAIN_DRIFT_DB, CHAIN_FULL_SCALE_DB, DEMO_START, run_demo
+from ..textout import fmt_db, table
 from .calibrate import calibration_lines
 from .levels import render_levels
 
@@ -39,6 +42,16 @@ def demo_command(out_dir: str | None, force: bool) -> None:
     loudest = max(result.levels.overall.bands, key=lambda band: band.levels["LZeq"])
     remark = " (the chiller's hum)" if loudest.label == "100" else ""
     click.echo(f"  loudest band: {loudest.label} Hz at {loudest.levels['LZeq']:.1f} dB{remark}")
+    click.echo("")
+    click.echo(f"3. The night recording as a batch (start {DEMO_START}, clock-aligned 30 s "
+               "intervals)")
+    click.echo(f"  {result.batch.line()}")
+    with open(result.batch.tables["intervals"], newline="") as handle:
+        rows = list(csv.DictReader(handle))
+    click.echo(table(("clock", "dur s", "LAeq", "LAFmax", "LAF90"),
+                     [[r["start_time"][11:19], f"{float(r['duration_s']):g}",
+                       fmt_db(float(r["LAeq"])), fmt_db(float(r["LAFmax"])),
+                       fmt_db(float(r["LAF90"]))] for r in rows], indent="  "))
     click.echo("")
     click.echo("Files written:")
     for role, path in result.files.items():
