@@ -106,6 +106,9 @@ class AnalysisSettings:
     settle_s : float
         Settling time at the start, s: counted in Leq and LE, not in the extremes, peaks and
         percentiles (see :class:`LevelEngine`). 0 reads everything from the first sample.
+    history_s : float or None
+        Also keep a time history with this step, s (:mod:`bandmeter.history`), for events
+        and exclusions; None keeps none.
     """
 
     interval_s: float | None = None
@@ -118,6 +121,7 @@ class AnalysisSettings:
     block_frames: int = DEFAULT_BLOCK_FRAMES
     histogram_resolution_db: float = 0.01
     settle_s: float = DEFAULT_SETTLE_S
+    history_s: float | None = None
 
     def __post_init__(self) -> None:
         if self.interval_s is not None and not (
@@ -143,6 +147,11 @@ class AnalysisSettings:
             )
         if not (0.0 <= self.settle_s <= 10.0):
             raise SettingsError(f"settle_s must lie in [0, 10] s, got {self.settle_s!r}")
+        if self.history_s is not None and not (
+            self.history_s > 0 and math.isfinite(self.history_s)
+        ):
+            raise SettingsError(f"history step must be a positive number of s, got "
+                                f"{self.history_s!r}")
         if not self.histogram_resolution_db > 0:
             raise SettingsError(
                 f"histogram resolution must be > 0 dB, got {self.histogram_resolution_db!r}"
@@ -305,6 +314,11 @@ class LevelEngine:
                 shift = int(round(delay * self.fs))
                 self.band_states.append(_BandState(int(factor), shift, 0, averager))
             self._warn_slow_bands(total_frames)
+        self.history = None
+        if settings.history_s is not None:
+            from .history import HistoryRecorder
+
+            self.history = HistoryRecorder(self.fs, settings.history_s, first_boundary)
         self.acc = _Accumulators(len(settings.percentiles), len(self.band_states))
         self._hist_proto = LevelHistogram(settings.histogram_resolution_db, -400.0, 60.0)
         self._hist_interval = -1
@@ -369,6 +383,8 @@ class LevelEngine:
         acc["full_scale"][ids] += np.add.reduceat(
             (np.abs(x) >= self.full_scale_threshold).astype(np.int64), seg
         )
+        if self.history is not None:
+            self.history.add_energy(start, a2)
         settled = max(0, self.settle_samples - start)
         if settled < n:
             self._process_extremes(start + settled, x[settled:], a2[settled:], c[settled:])
@@ -391,6 +407,8 @@ class LevelEngine:
         acc["max_s"][ids] = np.maximum(acc["max_s"][ids], np.maximum.reduceat(s, seg))
         acc["min_s"][ids] = np.minimum(acc["min_s"][ids], np.minimum.reduceat(s, seg))
         acc["max_i"][ids] = np.maximum(acc["max_i"][ids], np.maximum.reduceat(i, seg))
+        if self.history is not None:
+            self.history.add_levels(start, f, s)
         self._count_levels(f, seg, ids)
         self.peak_c.process(c)
         self.peak_z.process(x)
@@ -839,12 +857,19 @@ def analyse_recordings(
             for rec, sha in zip(recordings, hashes, strict=True)
         ]
     provenance = {**tool_stamp(), "sha256": hashes[0] if len(hashes) == 1 else hashes}
+    unit = UNIT_SPL if calibration is not None else UNIT_DBFS
+    history = None
+    if engine.history is not None:
+        history = engine.history.result(
+            frames, 0.0 if calibration is None else calibration.full_scale_level_db,
+            start_time, unit)
     return LevelResult(
         file=path,
         channel=channel,
         sample_rate=info.sample_rate,
         frames=frames,
-        unit=UNIT_SPL if calibration is not None else UNIT_DBFS,
+        unit=unit,
+        history=history,
         overall=overall,
         intervals=intervals,
         settings=settings.to_dict(),

@@ -231,6 +231,7 @@ class LevelResult:
     recording: dict[str, Any]
     provenance: dict[str, Any]
     warnings: list[str] = field(default_factory=list)
+    history: Any = None  # TimeHistory when AnalysisSettings.history_s was set
 
     @property
     def duration_s(self) -> float:

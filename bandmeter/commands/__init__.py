@@ -1,3 +1,3 @@
 """Click commands of the ``bandmeter`` CLI, one module per command (thin wrappers)."""
 
-from . import batch, calibrate, demo, info, levels  # noqa: F401
+from . import batch, calibrate, demo, events, info, levels  # noqa: F401

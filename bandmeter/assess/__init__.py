@@ -1,0 +1,1 @@
+"""Assessments built on measured levels: occupational noise exposure and dose."""
