@@ -222,6 +222,18 @@ class _Accumulators:
             g.ensure(k)
 
 
+def _band_segments(plan: IntervalPlan, j0: int, d: int, shift: int, m: int, lo_t: int,
+                   hi_t: int) -> tuple[np.ndarray, np.ndarray]:
+    """Split ``m`` band samples (from band sample ``j0``, decimation ``d``, delay ``shift``)
+    at the plan's boundaries; return the segment starts and their interval numbers."""
+    full = plan.boundaries_between(lo_t, hi_t)
+    split = np.unique(-(-(full + shift) // d) - j0)  # first band sample at/after b
+    split = split[(split > 0) & (split < m)]
+    seg = np.concatenate(([0], split)).astype(np.intp)
+    times = np.clip((j0 + seg) * d - shift, lo_t, hi_t - 1)
+    return seg, plan.interval_index(times)
+
+
 class LevelEngine:
     """Streaming sound level analysis of one channel.
 
@@ -318,7 +330,8 @@ class LevelEngine:
         if settings.history_s is not None:
             from .history import HistoryRecorder
 
-            self.history = HistoryRecorder(self.fs, settings.history_s, first_boundary)
+            self.history = HistoryRecorder(self.fs, settings.history_s, first_boundary,
+                                           n_bands=len(self.band_states))
         self.acc = _Accumulators(len(settings.percentiles), len(self.band_states))
         self._hist_proto = LevelHistogram(settings.histogram_resolution_db, -400.0, 60.0)
         self._hist_interval = -1
@@ -482,15 +495,13 @@ class LevelEngine:
             if limit is not None:
                 hi_t = min(hi_t, limit)
                 lo_t = min(lo_t, hi_t - 1)
-            full = self.plan.boundaries_between(lo_t, hi_t)
-            split = np.unique(-(-(full + shift) // d) - j0)  # first band sample at/after b
-            split = split[(split > 0) & (split < m)]
-            seg = np.concatenate(([0], split)).astype(np.intp)
-            times = np.clip((j0 + seg) * d - shift, lo_t, hi_t - 1)
-            ids = self.plan.interval_index(times)
+            seg, ids = _band_segments(self.plan, j0, d, shift, m, lo_t, hi_t)
             acc.ensure(int(ids[-1]))
             y2 = y * y
             acc["band_sum"][ids, j] += np.add.reduceat(y2, seg) * d
+            if self.history is not None:
+                hseg, hids = _band_segments(self.history.plan, j0, d, shift, m, lo_t, hi_t)
+                self.history.add_band_energy(j, hids, np.add.reduceat(y2, hseg) * d)
             if state.averager is not None:
                 env = state.averager.process(y2)
                 if (j0 * d - shift) < settle:  # no band maximum from the settling time
@@ -863,6 +874,10 @@ def analyse_recordings(
         history = engine.history.result(
             frames, 0.0 if calibration is None else calibration.full_scale_level_db,
             start_time, unit)
+        if engine.bank is not None:
+            history.bands = [BandInfo(b.nominal_hz, b.exact_hz, b.label)
+                             for b in engine.bank.bands]
+            history.band_key = f"L{settings.band_weighting}eq"
     return LevelResult(
         file=path,
         channel=channel,

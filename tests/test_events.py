@@ -145,3 +145,23 @@ def test_events_cli(tmp_path):
     assert out.read_text().count("\n") == 1 + 2
     bad = CliRunner().invoke(cli, ["events", str(path)])
     assert bad.exit_code == 1 and "no calibration" in bad.stderr
+
+
+def test_band_levels_with_and_without_a_range():
+    # a 1 kHz background and a 250 Hz stretch: excluding the stretch removes the 250 Hz
+    # band's energy and leaves the 1 kHz band's (energy arithmetic, definition of Leq)
+    t = np.arange(int(20 * FS)) / FS
+    x = _amplitude(60.0) * np.sin(2 * np.pi * 1000.0 * t)
+    x += np.where((t >= 5) & (t < 10), _amplitude(70.0), 0.0) * np.sin(2 * np.pi * 250.0 * t)
+    engine, _, _ = analyse_blocks([x], FS, AnalysisSettings(history_s=0.1, bands=1), L_FS)
+    h = engine.history.result(x.size, L_FS, None, "dB")
+    from bandmeter.results import BandInfo
+
+    h.bands = [BandInfo(b.nominal_hz, b.exact_hz, b.label) for b in engine.bank.bands]
+    out = apply_exclusions(h, [TimeRange(4.0, 12.0)])
+    ambient = {b["label"]: b["LZeq"] for b in out["ambient"]["bands"]}
+    residual = {b["label"]: b["LZeq"] for b in out["residual"]["bands"]}
+    assert ambient["1k"] == pytest.approx(60.0, abs=0.05)
+    assert residual["1k"] == pytest.approx(60.0, abs=0.05)
+    assert ambient["250"] == pytest.approx(70.0 + 10 * math.log10(5 / 20), abs=0.1)
+    assert residual["250"] < 30.0  # only the filter skirts of the 1 kHz tone remain

@@ -82,13 +82,28 @@ class NoiseEvent:
     threshold_db: float
     start_time: str | None = None
     end_time: str | None = None
+    bands: list[dict[str, Any]] | None = None  # band Leq over the event, when analysed
 
     def to_dict(self) -> dict[str, Any]:
         out = asdict(self)
         if self.start_time is None:
             out.pop("start_time")
             out.pop("end_time")
+        if self.bands is None:
+            out.pop("bands")
         return out
+
+
+def _band_spectrum(history: TimeHistory, a: int, b: int) -> list[dict[str, Any]] | None:
+    """Band Leq over steps [a, b) (energy average weighted by step duration), dB."""
+    if history.band_leq is None or history.bands is None:
+        return None
+    weights = history.duration_s[a:b, None]
+    energy = np.nansum(np.power(10.0, history.band_leq[a:b] / 10.0) * weights, axis=0)
+    with np.errstate(divide="ignore"):
+        levels = 10 * np.log10(energy / np.sum(weights))
+    return [{"nominal_hz": band.nominal_hz, "label": band.label, history.band_key: float(v)}
+            for band, v in zip(history.bands, levels, strict=True)]
 
 
 @dataclass
@@ -188,6 +203,7 @@ def detect_events(history: TimeHistory, criteria: EventCriteria | None = None) -
             LAeq=10 * math.log10(exposure / (end - start)) if exposure > 0 else -math.inf,
             threshold_db=float(np.nanmin(threshold[a:b])),
             start_time=history.clock(start), end_time=history.clock(end),
+            bands=_band_spectrum(history, a, b),
         ))
     total = float(np.sum(durations))
     return EventResult(events, criteria, criteria.describe(), total,

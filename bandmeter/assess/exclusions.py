@@ -5,9 +5,10 @@ passing) or, the other way round, separates a source's events from the residual 
 Given a :class:`~bandmeter.history.TimeHistory` and time ranges (from a table, or detected
 events), :func:`apply_exclusions` reports the A-weighted Leq and percentile levels of all the
 time (ambient), of the time left after removing the ranges (residual) and of the removed
-time itself, with the durations. Ranges are applied to whole steps of the history: a step
-counts as excluded when its midpoint lies inside a range, so the excluded time is a whole
-number of steps and is reported exactly as used.
+time itself, with the durations, and the band levels when the history carries bands.
+Ranges are applied to whole steps of the history: a step counts as excluded when its
+midpoint lies inside a range, so the excluded time is a whole number of steps and is
+reported exactly as used.
 
 Range table (CSV): columns ``start`` and ``end`` (seconds from the first sample, or ISO 8601
 clock times when the recording's start is known) and an optional ``label``.
@@ -94,6 +95,14 @@ def _levels(history: TimeHistory, keep: np.ndarray, percentiles: Sequence[float]
         return out
     energy = float(np.sum(history.energy()[keep]))
     out["LAeq"] = 10 * math.log10(energy / duration) if energy > 0 else -math.inf
+    if history.band_leq is not None and history.bands is not None:
+        weights = history.duration_s[keep][:, None]
+        band_energy = np.nansum(np.power(10.0, history.band_leq[keep] / 10.0) * weights, axis=0)
+        with np.errstate(divide="ignore"):
+            band_levels = 10 * np.log10(band_energy / duration)
+        out["bands"] = [{"nominal_hz": b.nominal_hz, "label": b.label,
+                         history.band_key: float(v)}
+                        for b, v in zip(history.bands, band_levels, strict=True)]
     sampled = history.laf[keep]
     sampled = sampled[np.isfinite(sampled)]
     for p in percentiles:

@@ -43,6 +43,8 @@ def _exclusion_lines(title: str, data: dict) -> list[str]:
               default="F", show_default=True, help="Detector time weighting.")
 @click.option("--step", default="100ms", show_default=True,
               help="Time resolution of the level history.")
+@click.option("--bands", metavar="octave|third|6|12|24",
+              help="Also the band spectrum (Leq) of each event and of the exclusions.")
 @click.option("--exclude", "exclude_path", type=click.Path(dir_okay=False),
               help="CSV of time ranges (start,end[,label]) to exclude: levels with and without.")
 @click.option("--start", metavar="ISO8601", help="Clock time of the first sample.")
@@ -55,8 +57,8 @@ def events_command(
     cal_span: str | None, full_scale_level: float | None, channel: int,
     threshold: float | None, above_background: float, background_window: str,
     hysteresis: float, min_duration: str, merge_gap: str, time_weighting: str, step: str,
-    exclude_path: str | None, start: str | None, as_json: bool, output: str | None,
-    force: bool,
+    bands: str | None, exclude_path: str | None, start: str | None, as_json: bool,
+    output: str | None, force: bool,
 ) -> None:
     """Noise events: where the A level exceeds a threshold long enough, and the levels
     with and without them (ambient and residual).
@@ -84,7 +86,15 @@ def events_command(
 
         check_writable(output, force)
     origin = parse_start(start)
-    result = analyse_file(file, calibration, AnalysisSettings(history_s=parse_duration(step)),
+    b = None
+    if bands is not None:
+        from ..engine import BAND_NAMES
+
+        if bands.lower() not in BAND_NAMES:
+            raise SettingsError(f"--bands must be octave, third, 6, 12 or 24, got {bands!r}")
+        b = BAND_NAMES[bands.lower()]
+    result = analyse_file(file, calibration,
+                          AnalysisSettings(history_s=parse_duration(step), bands=b),
                           channel=channel, start_time=origin)
     history = result.history
     found = detect_events(history, criteria)
