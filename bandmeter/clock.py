@@ -709,3 +709,15 @@ def contiguous_runs(
         else:
             best.append(i)
     return runs
+
+
+def after(origin: datetime, seconds: float) -> datetime:
+    """The clock time ``seconds`` of elapsed time after ``origin``, in ``origin``'s zone.
+
+    Computed through UTC: adding a timedelta to an aware datetime directly adds wall-clock
+    time, which is an hour off across a daylight-saving change in an IANA zone.
+    """
+    if origin.utcoffset() is None:
+        raise SettingsError(f"start time {origin.isoformat()} has no UTC offset")
+    utc = origin.astimezone(timezone.utc) + timedelta(seconds=float(seconds))
+    return utc.astimezone(origin.tzinfo)

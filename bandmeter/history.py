@@ -12,10 +12,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import datetime
 
 import numpy as np
 
+from .clock import after
 from .intervals import IntervalPlan
 from .levels import db_from_power_ratio
 
@@ -82,7 +83,7 @@ class TimeHistory:
         """Clock time (ISO 8601) of ``t_s`` seconds from the first sample, when known."""
         if self.clock_origin is None:
             return None
-        return (self.clock_origin + timedelta(seconds=float(t_s))).isoformat()
+        return after(self.clock_origin, float(t_s)).isoformat()
 
 
 class HistoryRecorder:

@@ -58,7 +58,7 @@ def _levels_array(levels_db: ArrayLike, name: str = "levels") -> np.ndarray:
 def combine_levels(levels_db: ArrayLike) -> float:
     """Energy sum of levels: 10 lg(sum 10^(Li/10)).
 
-    The level of several incoherent sources together; e.g. 80 + 80 + 90 dB gives 90.88 dB.
+    The level of several incoherent sources together; e.g. 80 + 80 + 90 dB gives 90.79 dB.
 
     Parameters
     ----------

@@ -11,10 +11,12 @@ from __future__ import annotations
 
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime
 from typing import Any, overload
 
 import numpy as np
+
+from .clock import after
 
 #: Unit label of calibrated levels.
 UNIT_SPL = "dB re 20 uPa"
@@ -186,7 +188,7 @@ class IntervalSeries(Sequence[IntervalResult]):
     def _row(self, j: int) -> IntervalResult:
         clock = None
         if self.clock_origin is not None:
-            clock = (self.clock_origin + timedelta(seconds=float(self.start_s[j]))).isoformat()
+            clock = after(self.clock_origin, float(self.start_s[j])).isoformat()
         bands = None
         if self.bands is not None:
             assert self.band_values is not None

@@ -11,7 +11,6 @@ from bandmeter.assess.events import EventCriteria, detect_events
 from bandmeter.assess.exclusions import TimeRange, apply_exclusions, read_ranges
 from bandmeter.engine import AnalysisSettings, analyse_blocks
 from bandmeter.errors import SettingsError
-from bandmeter.signals import sine
 
 FS = 16000
 L_FS = 100.0  # full-scale sine = 100 dB

@@ -57,3 +57,14 @@ def test_series_pickles(analysed):
     _, intervals = analysed
     back = pickle.loads(pickle.dumps(intervals))
     assert [iv.to_dict() for iv in back] == [iv.to_dict() for iv in intervals]
+
+
+def test_clock_times_count_elapsed_time_across_a_clock_change():
+    # Europe/London leaves summer time at 02:00 BST on 2026-10-25 (tz database): 00:30 BST
+    # plus two hours of elapsed time is 01:30 GMT, not 02:30 (calendar arithmetic via UTC)
+    from zoneinfo import ZoneInfo
+
+    start = datetime(2026, 10, 25, 0, 30, tzinfo=ZoneInfo("Europe/London"))
+    series = IntervalSeries([0.0, 7200.0], [1.0, 1.0], [False, False], [0, 0], ["LAeq"],
+                            [[50.0], [51.0]], clock_origin=start)
+    assert series[1].start_time == "2026-10-25T01:30:00+00:00"

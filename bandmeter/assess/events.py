@@ -217,14 +217,16 @@ def _per_hour(events: Sequence[NoiseEvent], history: TimeHistory, total_s: float
     if history.clock_origin is not None:
         from datetime import timedelta
 
+        from ..clock import after
+
         origin = history.clock_origin
         hour = origin.replace(minute=0, second=0, microsecond=0)
-        end = origin + timedelta(seconds=total_s)
+        end = after(origin, total_s)
         while hour < end:
             counts[hour.isoformat()] = 0
             hour += timedelta(hours=1)
         for e in events:
-            when = origin + timedelta(seconds=e.start_s)
+            when = after(origin, e.start_s)
             counts[when.replace(minute=0, second=0, microsecond=0).isoformat()] += 1
         return [{"hour": k, "count": v} for k, v in counts.items()]
     hours = max(1, math.ceil(total_s / 3600.0))

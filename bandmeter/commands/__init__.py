@@ -1,3 +1,13 @@
 """Click commands of the ``bandmeter`` CLI, one module per command (thin wrappers)."""
 
-from . import batch, calibrate, demo, events, info, levels  # noqa: F401
+from . import (  # noqa: F401
+    batch,
+    calibrate,
+    combine,
+    demo,
+    events,
+    exposure,
+    info,
+    levels,
+    rating,
+)
