@@ -497,9 +497,10 @@ class _BlockKernel:
         # [s, x] @ step = next state; [s, x] @ out_w[c] = output columns of chunk c
         self.step = np.ascontiguousarray(np.stack([np.vstack([p[0].T, p[1].T]) for p in part]))
         wide = np.stack([np.vstack([p[2].T, p[3].T]) for p in part])  # (bands, n+sub, sub)
+        self.cols = _OUT_COLS
         self.out_w = [
-            np.ascontiguousarray(wide[:, : n + c + _OUT_COLS, c : c + _OUT_COLS])
-            for c in range(0, sub, _OUT_COLS)
+            np.ascontiguousarray(wide[:, : n + c + self.cols, c : c + self.cols])
+            for c in range(0, sub, self.cols)
         ]
         self.final = [self._final_matrices(r) for r in range(sub)]
         self._levels: dict[int, _FrameLevel] = {}
@@ -563,8 +564,8 @@ class _BlockKernel:
         rows = work.reshape(nb, frames * subs, n + sub)
         dest = out[:, : frames * frame].reshape(nb, frames * subs, sub)
         for k, w in enumerate(self.out_w):
-            c = k * _OUT_COLS
-            np.matmul(rows[:, :, : w.shape[1]], w, out=dest[:, :, c : c + _OUT_COLS])
+            c = k * self.cols
+            np.matmul(rows[:, :, : w.shape[1]], w, out=dest[:, :, c : c + self.cols])
         q, r = divmod(x.size, sub)
         if q == frames * subs:
             state[...] = tops[:, -1]
