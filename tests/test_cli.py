@@ -354,3 +354,18 @@ def test_band_option_errors(tmp_path, two_tone_file):
         assert result.exit_code == 1, extra
         assert message in result.stderr, (extra, result.stderr)
         assert "Traceback" not in result.output
+
+
+def test_levels_third_octaves_carry_the_tone_screen(two_tone_file):
+    # pure tones at 125 Hz and 1 kHz: their bands exceed both neighbours by far more than
+    # the 15 dB (25-125 Hz) and 5 dB (500 Hz-10 kHz) differences (ISO 1996-2 Annex K, from
+    # memory), since the neighbouring bands see only the filter skirts
+    result = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "third",
+                 "--json")
+    tones = json.loads(result.stdout)["tonality"]["overall"]
+    assert [t["nominal_hz"] for t in tones] == [125.0, 1000.0]
+    text = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "third")
+    assert "Tone screen" in text.stdout and "125 Hz" in text.stdout
+    octave = run("levels", two_tone_file, "--full-scale-level", "120", "--bands", "octave",
+                 "--json")
+    assert "tonality" not in json.loads(octave.stdout)

@@ -116,6 +116,32 @@ def render_levels(result: LevelResult) -> str:
     return "\n".join(lines)
 
 
+def tone_screen(result: LevelResult):
+    """The one-third-octave tone screen of a result with Z-weighted one-third octaves."""
+    settings = result.settings
+    if settings.get("bands") != 3 or settings.get("band_weighting") != "Z":
+        return None
+    from ..assess.tonality import screen_result
+
+    return screen_result(result, "LZeq" if result.calibrated else "LZeq_dBFS")
+
+
+def render_tones(screening) -> str:
+    """Terminal lines of a tone screen."""
+    def describe(tones) -> str:
+        return ", ".join(f"{t.nominal_hz:g} Hz (+{t.margin_db:.1f} dB over the required "
+                         f"{t.required_db:g} dB)" for t in tones) or "no tone"
+
+    lines = ["", "Tone screen (one-third-octave bands above both neighbours by 15/8/5 dB,",
+             "  ISO 1996-2 Annex K / BS 4142 Annex C; differences from memory, unconfirmed)",
+             f"  whole recording: {describe(screening.overall)}"]
+    if screening.assessed_intervals > 1:
+        counts = ", ".join(f"{f:g} Hz {n}" for f, n in screening.band_counts().items())
+        lines.append(f"  intervals with a tone: {len(screening.intervals)} of "
+                     f"{screening.assessed_intervals}" + (f" ({counts})" if counts else ""))
+    return "\n".join(lines)
+
+
 @cli.command("levels")
 @click.argument("file", type=click.Path(dir_okay=True))
 @calibration_options
@@ -173,10 +199,16 @@ def levels_command(
     if output is not None:
         rows = tidy_band_rows(result) if tidy else wide_rows(result)
         write_csv(output, rows, force=force)
+    screening = tone_screen(result)
     if as_json:
-        echo_json(result.to_dict())
+        data = result.to_dict()
+        if screening is not None:
+            data["tonality"] = screening.to_dict()
+        echo_json(data)
     else:
         click.echo(render_levels(result))
+        if screening is not None:
+            click.echo(render_tones(screening))
         if output is not None:
             click.echo(f"\nwritten: {output}")
     for message in result.warnings:
