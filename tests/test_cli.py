@@ -225,6 +225,11 @@ def test_demo_recovers_its_known_scale(tmp_path):
     hum = next(r for r in rows if r["interval"] == "0" and r["band"] == "100")
     assert 55.0 <= float(hum["LZeq"]) <= 55.3
     assert "loudest band: 100 Hz" in result.stdout
+    # the events are the lorry pass-by (35-60 s) and the door bang at 90 s after the start
+    # 23:59:45 (demo.py scenario): the bang starts at 00:01:15 (calendar arithmetic)
+    assert "00:01:15" in result.stdout.split("4. Noise events")[1].split("5. ")[0]
+    assert "Lden" in result.stdout and "LEX,8h" in result.stdout
+    assert "Indicative only" in result.stdout
     assert run("demo", "--out", out).exit_code == 1  # no overwrite without --force
     assert run("demo", "--out", out, "--force").exit_code == 0
     assert math.isfinite(cal.stability_db)

@@ -10,7 +10,9 @@ from ..cli import cli, warn
 from ..demo import CALIBRATOR_DB, CHAIN_DRIFT_DB, CHAIN_FULL_SCALE_DB, DEMO_START, run_demo
 from ..textout import fmt_db, table
 from .calibrate import calibration_lines
-from .levels import render_levels
+from .exposure import render_exposure
+from .levels import render_levels, render_tones, tone_screen
+from .rating import render_rating
 
 
 @cli.command("demo")
@@ -52,6 +54,24 @@ def demo_command(out_dir: str | None, force: bool) -> None:
                      [[r["start_time"][11:19], f"{float(r['duration_s']):g}",
                        fmt_db(float(r["LAeq"])), fmt_db(float(r["LAFmax"])),
                        fmt_db(float(r["LAF90"]))] for r in rows], indent="  "))
+    click.echo(render_tones(tone_screen(result.levels)))
+    click.echo("")
+    click.echo("4. Noise events in the night recording (default rule)")
+    click.echo(f"  rule: {result.events.rule}")
+    click.echo(table(("clock", "dur s", "LAFmax", "LAE", "LAeq"),
+                     [[e.start_time[11:19], f"{e.duration_s:.1f}", fmt_db(e.LAFmax),
+                       fmt_db(e.LAE), fmt_db(e.LAeq)] for e in result.events.events],
+                     indent="  "))
+    amb, res = result.residual["ambient"], result.residual["residual"]
+    click.echo(f"  LAeq {fmt_db(amb['LAeq'])} dB with the events, {fmt_db(res['LAeq'])} dB "
+               f"without them ({result.residual['excluded_s']:.1f} s excluded)")
+    click.echo("")
+    click.echo("5. Day-evening-night rating of the depot monitor's hourly LAeq (two invented "
+               "days)")
+    click.echo(render_rating(result.rating))
+    click.echo("")
+    click.echo("6. Daily noise exposure of the yard marshal (6 h at MP2, 2 h in the workshop)")
+    click.echo(render_exposure(result.exposure))
     click.echo("")
     click.echo("Files written:")
     for role, path in result.files.items():

@@ -276,7 +276,7 @@ def day_rows(rating: RatingResult, label: str | None = None) -> list[dict[str, A
     return rows
 
 
-def _render_rating(rating: RatingResult) -> str:
+def render_rating(rating: RatingResult) -> str:
     p = rating.periods
     rows = []
     for r in day_rows(rating):
@@ -314,7 +314,7 @@ def render(source: str, ratings: Sequence[tuple[_Survey, RatingResult]],
     for survey, rating in ratings:
         title = "Per day" if survey.label in ("all", source) else f"{survey.label}, per day"
         lines += ["", f"{title} (LAeq dB; a night belongs to the date it starts)",
-                  _render_rating(rating)]
+                  render_rating(rating)]
     if tonality:
         lines += _render_tones([t for s, _ in ratings for t in s.tones])
     lines += ["", *textwrap.wrap(f"Caution: {CAUTION}", 88)]
