@@ -108,13 +108,18 @@ def _describe_libsndfile_error(path: str, exc: Exception) -> str:
     return f"{path}: not a readable audio file ({reason}); expected WAV, RF64, W64 or FLAC"
 
 
-def _check_path(path: str) -> None:
+def check_readable_file(path: str) -> None:
+    """Raise a one-line :class:`AudioError` unless ``path`` is a file this process can read."""
     if not os.path.exists(path):
         raise AudioError(f"{path}: no such file")
     if os.path.isdir(path):
         raise AudioError(f"{path}: is a folder, expected an audio file")
     if not os.access(path, os.R_OK):
         raise AudioError(f"{path}: permission denied (cannot read the file)")
+
+
+def _check_path(path: str) -> None:
+    check_readable_file(path)
     if os.path.getsize(path) == 0:
         raise AudioError(f"{path}: file is empty (0 bytes)")
 

@@ -34,6 +34,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 from wavinfo import WavInfoReader
 from wavinfo.wave_bext_reader import WavBextReader
 
+from .audio import check_readable_file
 from .errors import AudioError, SettingsError
 
 #: Start-time sources, in the default order of preference.
@@ -206,18 +207,9 @@ _BEXT_DATE_RE = re.compile(r"^(\d{4})\D(\d{2})\D(\d{2})$")
 _BEXT_TIME_RE = re.compile(r"^(\d{2})\D(\d{2})\D(\d{2})$")
 
 
-def _check_file(path: str) -> None:
-    if not os.path.exists(path):
-        raise AudioError(f"{path}: no such file")
-    if os.path.isdir(path):
-        raise AudioError(f"{path}: is a folder, expected an audio file")
-    if not os.access(path, os.R_OK):
-        raise AudioError(f"{path}: permission denied (cannot read the file)")
-
-
 def _read_bext(path: str) -> tuple[WavBextReader, int] | None:
     """The wavinfo bext reader and sample rate of a RIFF/RF64 file, or None without bext."""
-    _check_file(path)
+    check_readable_file(path)
     with open(path, "rb") as handle:
         magic = handle.read(4)
     if magic not in _RIFF_MAGIC:

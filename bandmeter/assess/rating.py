@@ -44,7 +44,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import date, datetime, time, timedelta, timezone, tzinfo
+from datetime import date, datetime, time, timedelta, tzinfo
 from itertools import pairwise
 from typing import Any
 
@@ -295,11 +295,9 @@ def interval_starts(origin: datetime, offsets_s: Sequence[float] | np.ndarray) -
     daylight-saving change carries the new offset. (Adding a timedelta to an aware datetime
     directly would add wall-clock time.)
     """
-    if origin.utcoffset() is None:
-        raise SettingsError(f"start time {origin.isoformat()} has no UTC offset")
-    base = origin.astimezone(timezone.utc)
-    tz = origin.tzinfo
-    return [(base + timedelta(seconds=float(s))).astimezone(tz) for s in offsets_s]
+    from ..clock import after
+
+    return [after(origin, float(s)) for s in offsets_s]
 
 
 def _wall(day: date, hour: float, tz: tzinfo) -> datetime:

@@ -10,7 +10,7 @@ import click
 from ..batch import BatchOptions, run_batch
 from ..cli import cli, warn
 from .levels import settings_from_options
-from .options import calibration_options, channel_option, resolve_calibration
+from .options import analysis_options, calibration_options, channel_option, resolve_calibration
 
 
 @cli.command("batch")
@@ -22,16 +22,7 @@ from .options import calibration_options, channel_option, resolve_calibration
               help="CSV of rules: recording path or glob -> calibration file or tone + level.")
 @channel_option
 @click.option("--dbfs", is_flag=True, help="Without calibration: levels re full scale.")
-@click.option("--interval", metavar="T", help="Reporting interval, e.g. 1s, 15min, 1h.")
-@click.option("--percentiles", default="1,5,10,50,90,95,99", show_default=True,
-              help="N of the percentile levels LAFN, %, comma separated.")
-@click.option("--bands", metavar="octave|third|6|12|24", help="Fractional-octave bands.")
-@click.option("--fmin", type=float, help="Lowest band, mid-band frequency in Hz.")
-@click.option("--fmax", type=float, help="Highest band, mid-band frequency in Hz.")
-@click.option("--band-weighting", default="Z", show_default=True,
-              type=click.Choice(["Z", "A", "C"], case_sensitive=False),
-              help="Frequency weighting applied before the band filters.")
-@click.option("--band-max", is_flag=True, help="Also the F-weighted maximum of each band.")
+@analysis_options
 @click.option("--start", metavar="ISO8601", help="Clock time of the first sample.")
 @click.option("--start-from-name", "name_pattern", metavar="PATTERN",
               help="strftime pattern of the start time in file names, e.g. MP2_%Y%m%d_%H%M%S.")

@@ -13,7 +13,13 @@ from ..intervals import parse_duration
 from ..results import LevelResult
 from ..tables import tidy_band_rows, wide_rows, write_csv
 from ..textout import fmt_db, key_values, table
-from .options import calibration_options, channel_option, output_options, resolve_calibration
+from .options import (
+    analysis_options,
+    calibration_options,
+    channel_option,
+    output_options,
+    resolve_calibration,
+)
 
 #: Columns of the per-interval terminal table (all metrics go to CSV and JSON).
 INTERVAL_COLUMNS = ("LAeq", "LAFmax", "LAFmin", "LAF10", "LAF90", "LCpeak")
@@ -148,18 +154,7 @@ def render_tones(screening) -> str:
 @channel_option
 @click.option("--dbfs", is_flag=True,
               help="Without calibration: report dB re full scale (keys end in _dBFS).")
-@click.option("--interval", metavar="T",
-              help="Reporting interval, e.g. 100ms, 1s, 1min, 15min, 1h (default: whole file).")
-@click.option("--percentiles", default="1,5,10,50,90,95,99", show_default=True,
-              help="N of the percentile levels LAFN, %, comma separated.")
-@click.option("--bands", metavar="octave|third|6|12|24",
-              help="Fractional-octave band analysis (1/1, 1/3, 1/6, 1/12, 1/24 octave).")
-@click.option("--fmin", type=float, help="Lowest band, mid-band frequency in Hz.")
-@click.option("--fmax", type=float, help="Highest band, mid-band frequency in Hz.")
-@click.option("--band-weighting", default="Z", show_default=True,
-              type=click.Choice(["Z", "A", "C"], case_sensitive=False),
-              help="Frequency weighting applied before the band filters.")
-@click.option("--band-max", is_flag=True, help="Also the F-weighted maximum of each band.")
+@analysis_options
 @click.option("--tidy", is_flag=True,
               help="With -o and --bands: one CSV row per interval x band instead of wide rows.")
 @click.option("--start", "start", metavar="ISO8601",

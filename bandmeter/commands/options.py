@@ -99,3 +99,28 @@ def output_options(func: F) -> F:
     for option in reversed(options):
         func = option(func)
     return func
+
+
+def analysis_options(func: F) -> F:
+    """What to compute: ``--interval``, ``--percentiles`` and the band options (see
+    :func:`bandmeter.commands.levels.settings_from_options`)."""
+    options = [
+        click.option("--interval", metavar="T",
+                     help="Reporting interval, e.g. 100ms, 1s, 1min, 15min, 1h "
+                          "(default: whole file)."),
+        click.option("--percentiles", default="1,5,10,50,90,95,99", show_default=True,
+                     help="N of the percentile levels LAFN, %, comma separated."),
+        click.option("--bands", metavar="octave|third|6|12|24",
+                     help="Fractional-octave band analysis (1/1, 1/3, 1/6, 1/12, 1/24 "
+                          "octave)."),
+        click.option("--fmin", type=float, help="Lowest band, mid-band frequency in Hz."),
+        click.option("--fmax", type=float, help="Highest band, mid-band frequency in Hz."),
+        click.option("--band-weighting", default="Z", show_default=True,
+                     type=click.Choice(["Z", "A", "C"], case_sensitive=False),
+                     help="Frequency weighting applied before the band filters."),
+        click.option("--band-max", is_flag=True,
+                     help="Also the F-weighted maximum of each band."),
+    ]
+    for option in reversed(options):
+        func = option(func)
+    return func
