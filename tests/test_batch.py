@@ -388,3 +388,25 @@ def test_progress_line():
     quiet = io.StringIO()
     Progress(1, 1.0, stream=quiet).update(1.0, False, True)  # StringIO is not a terminal
     assert quiet.getvalue() == ""
+
+
+def test_events_over_a_batch_folder(tmp_path):
+    # two recordings with one loud 1 kHz stretch each (A weighting 0 dB at 1 kHz, IEC 61672-1)
+    folder = tmp_path / "ev"
+    folder.mkdir()
+    t = np.arange(int(12 * FS)) / FS
+    for name, at in (("mp7_a.wav", 3.0), ("mp7_b.wav", 6.0)):
+        amp = np.where((t >= at) & (t < at + 2), 0.1, 0.001)
+        sf.write(str(folder / name), amp * np.sin(2 * np.pi * 1000 * t), FS, subtype="FLOAT")
+    out = tmp_path / "out"
+    assert run_batch([str(folder)], str(out), _options()).ok
+    result = CliRunner().invoke(cli, ["events", str(out), "--threshold", "80", "--json"])
+    assert result.exit_code == 0, result.output
+    found = json.loads(result.stdout)["measurements"]
+    starts = sorted((os.path.basename(m["file"]), m["events"][0]["start_s"]) for m in found)
+    assert [s for _, s in starts] == pytest.approx([3.0, 6.0], abs=0.1)  # one step
+    sf.write(str(folder / "mp7_b.wav"), np.zeros(FS), FS)  # changed after the batch
+    again = CliRunner().invoke(cli, ["events", str(out)])
+    assert again.exit_code == 1 and "changed since the batch" in again.stderr
+    refused = CliRunner().invoke(cli, ["events", str(out), "--full-scale-level", "100"])
+    assert refused.exit_code == 1 and "batch folder" in refused.stderr

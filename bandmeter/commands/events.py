@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+
 import click
 
 from ..assess.events import EventCriteria, detect_events
@@ -25,8 +27,54 @@ def _exclusion_lines(title: str, data: dict) -> list[str]:
     return ["", title, table(("part", "dur s", "LAeq", "LAF10", "LAF90"), rows, indent="  ")]
 
 
+EVENT_COLUMNS = ["start_s", "end_s", "duration_s", "start_time", "end_time", "LAFmax", "LAE",
+                 "LAeq", "threshold_db"]
+
+
+def _band_designator(bands: str | None) -> int | None:
+    if bands is None:
+        return None
+    from ..engine import BAND_NAMES
+
+    if bands.lower() not in BAND_NAMES:
+        raise SettingsError(f"--bands must be octave, third, 6, 12 or 24, got {bands!r}")
+    return BAND_NAMES[bands.lower()]
+
+
+def _batch_folder(folder: str, criteria: EventCriteria, step_s: float, b: int | None,
+                  as_json: bool, output: str | None, force: bool) -> None:
+    """``events BATCH_DIR``: the events of every recording of a batch."""
+    from ..assess.batch_events import batch_events
+
+    if output is not None:
+        from ..outputs import check_writable
+
+        check_writable(output, force)
+    found = batch_events(folder, criteria, step_s, b)
+    rows = [{"id": m.id, "file": m.file, **e.to_dict()}
+            for m in found if m.result for e in m.result.events]
+    if output is not None:
+        write_csv(output, rows, force=force, columns=["id", "file", *EVENT_COLUMNS])
+    if as_json:
+        echo_json({"folder": folder, "rule": criteria.describe(), "measurements": [
+            {"id": m.id, "file": m.file, "error": m.error,
+             **(m.result.to_dict() if m.result else {})} for m in found]})
+    else:
+        lines = [folder, key_values([("rule", criteria.describe()),
+                                     ("measurements", len(found))])]
+        table_rows = [[m.file, str(len(m.result.events)) if m.result else "-",
+                       m.error or ""] for m in found]
+        lines += ["", table(("recording", "events", "error"), table_rows, indent="  ")]
+        click.echo("\n".join(lines))
+    for m in found:
+        if m.error:
+            warn(f"{m.file}: {m.error}")
+    if any(m.error for m in found):
+        raise SystemExit(1)
+
+
 @cli.command("events")
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", type=click.Path())
 @calibration_options
 @channel_option
 @click.option("--threshold", type=float, help="Absolute threshold, dB (default: relative).")
@@ -68,31 +116,36 @@ def events_command(
       bandmeter events mp2_night.wav --cal mp2.cal.json --min-duration 3s
       bandmeter events mp2_night.wav --cal mp2.cal.json --exclude speech.csv --json
     With no --threshold an event is 10 dB above the running LAF90 of 5-minute blocks. Per
-    event: start, end, duration, LAFmax, LAE and LAeq; counts per hour.
+    event: start, end, duration, LAFmax, LAE and LAeq; counts per hour. FILE may also be a
+    `bandmeter batch` output folder: every recording in it is read again with the
+    calibration and start time the batch recorded.
     """
-    calibration = resolve_calibration(cal_path, cal_tone, cal_level, cal_span,
-                                      full_scale_level, channel)
-    if calibration is None:
-        raise SettingsError("no calibration given; pass --cal, --cal-tone with --cal-level or "
-                            "--full-scale-level")
     criteria = EventCriteria(
         threshold_db=threshold, background_offset_db=above_background,
         background_window_s=parse_duration(background_window), hysteresis_db=hysteresis,
         min_duration_s=parse_duration(min_duration), merge_gap_s=parse_duration(merge_gap),
         time_weighting=time_weighting,
     )
+    b = _band_designator(bands)
+    if os.path.isdir(file):
+        given = [n for n, v in (("--cal", cal_path), ("--cal-tone", cal_tone),
+                                ("--full-scale-level", full_scale_level),
+                                ("--exclude", exclude_path), ("--start", start)) if v]
+        if given:
+            raise SettingsError(f"{file} is a batch folder: its recordings keep their own "
+                                f"calibration and start; drop {', '.join(given)}")
+        _batch_folder(file, criteria, parse_duration(step), b, as_json, output, force)
+        return
+    calibration = resolve_calibration(cal_path, cal_tone, cal_level, cal_span,
+                                      full_scale_level, channel)
+    if calibration is None:
+        raise SettingsError("no calibration given; pass --cal, --cal-tone with --cal-level or "
+                            "--full-scale-level")
     if output is not None:
         from ..outputs import check_writable
 
         check_writable(output, force)
     origin = parse_start(start)
-    b = None
-    if bands is not None:
-        from ..engine import BAND_NAMES
-
-        if bands.lower() not in BAND_NAMES:
-            raise SettingsError(f"--bands must be octave, third, 6, 12 or 24, got {bands!r}")
-        b = BAND_NAMES[bands.lower()]
     result = analyse_file(file, calibration,
                           AnalysisSettings(history_s=parse_duration(step), bands=b),
                           channel=channel, start_time=origin)
@@ -106,8 +159,7 @@ def events_command(
     user = apply_exclusions(history, ranges) if ranges else None
     if output is not None:
         write_csv(output, [e.to_dict() for e in found.events], force=force,
-                  columns=["start_s", "end_s", "duration_s", "start_time", "end_time",
-                           "LAFmax", "LAE", "LAeq", "threshold_db"])
+                  columns=EVENT_COLUMNS)
     if as_json:
         data = {"file": file, **found.to_dict(), "without_events": without_events,
                 "exclusions": user, "warnings": result.warnings}
