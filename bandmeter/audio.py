@@ -59,7 +59,11 @@ class RecordingInfo:
     channels : int
         Number of channels in the file.
     frames : int
-        Number of sample frames (samples per channel).
+        Number of sample frames (samples per channel) present in the file.
+    declared_frames : int or None
+        Frames the WAV/RF64 header's data chunk declares (None for other containers or when
+        it cannot be read). More than ``frames`` means the file is truncated (a recorder
+        that lost power, a copy that stopped).
     """
 
     path: str
@@ -69,6 +73,22 @@ class RecordingInfo:
     sample_rate: int
     channels: int
     frames: int
+    declared_frames: int | None = None
+
+    @property
+    def truncated(self) -> bool:
+        """True when the header declares more audio than the file holds."""
+        return self.declared_frames is not None and self.declared_frames > self.frames
+
+    def truncation_warning(self) -> str | None:
+        """One line for the reports when the file is truncated, else None."""
+        if not self.truncated:
+            return None
+        assert self.declared_frames is not None
+        return (f"{self.path}: truncated: the header declares "
+                f"{self.declared_frames / self.sample_rate:.3f} s but the file holds "
+                f"{self.duration_s:.3f} s; only the {self.duration_s:.3f} s present are "
+                "analysed")
 
     @property
     def duration_s(self) -> float:
@@ -146,6 +166,23 @@ def _open_soundfile(path: str) -> sf.SoundFile:
     return handle
 
 
+def _declared_frames(path: str, container: str) -> int | None:
+    """Frames declared by a WAV/RF64 data chunk (via wavinfo), or None."""
+    if container not in ("WAV", "WAVEX", "RF64"):
+        return None
+    try:
+        from wavinfo import WavInfoReader
+
+        info = WavInfoReader(path)
+        block_align = int(info.fmt.block_align)
+        count = int(info.data.byte_count)
+    except Exception:  # noqa: BLE001 - a header wavinfo cannot read: no declared length
+        return None
+    if block_align <= 0 or count <= 0:
+        return None
+    return count // block_align
+
+
 def read_info(path: str | os.PathLike[str]) -> RecordingInfo:
     """Read a recording's header.
 
@@ -173,6 +210,7 @@ def read_info(path: str | os.PathLike[str]) -> RecordingInfo:
             sample_rate=int(handle.samplerate),
             channels=int(handle.channels),
             frames=int(handle.frames),
+            declared_frames=_declared_frames(spath, handle.format),
         )
 
 
@@ -213,6 +251,7 @@ class Recording:
                 sample_rate=int(self._handle.samplerate),
                 channels=int(self._handle.channels),
                 frames=int(self._handle.frames),
+                declared_frames=_declared_frames(self.path, self._handle.format),
             )
             if not 1 <= channel <= self.info.channels:
                 raise AudioError(
@@ -295,8 +334,16 @@ class Recording:
                     f"({position / self.sample_rate:.3f} s of "
                     f"{self.frames / self.sample_rate:.3f} s); the file is truncated"
                 )
+            block = np.ascontiguousarray(data[:, self.channel - 1])
+            if self.info.is_float and not np.isfinite(block).all():
+                bad = int(np.flatnonzero(~np.isfinite(block))[0]) + position
+                raise AudioError(
+                    f"{self.path}: sample {bad} ({bad / self.sample_rate:.3f} s) is NaN or "
+                    "infinite; the float file is corrupt there (no level can be computed): "
+                    "repair or cut the file"
+                )
             position += got
-            yield np.ascontiguousarray(data[:, self.channel - 1])
+            yield block
 
     def read(self, start: int = 0, stop: int | None = None) -> np.ndarray:
         """Read a sample range of the channel into memory (for short files and spans)."""

@@ -326,6 +326,7 @@ class LevelEngine:
                 shift = int(round(delay * self.fs))
                 self.band_states.append(_BandState(int(factor), shift, 0, averager))
             self._warn_slow_bands(total_frames)
+        self.sum_x = 0.0  # sum of the samples: the DC offset check
         self.history = None
         if settings.history_s is not None:
             from .history import HistoryRecorder
@@ -392,6 +393,7 @@ class LevelEngine:
         acc["sum_a2"][ids] += np.add.reduceat(a2, seg)
         acc["sum_c2"][ids] += np.add.reduceat(c * c, seg)
         acc["sum_z2"][ids] += np.add.reduceat(x * x, seg)
+        self.sum_x += float(np.sum(x))
         acc["count"][ids] += np.diff(np.append(seg, n))
         acc["full_scale"][ids] += np.add.reduceat(
             (np.abs(x) >= self.full_scale_threshold).astype(np.int64), seg
@@ -726,6 +728,31 @@ def analyse_array(
     return overall, intervals
 
 
+#: A DC offset that raises LZeq by at least this much is warned about, dB.
+DC_WARNING_DB = 0.1
+
+
+def dc_offset_warning(sum_x: float, sum_x2: float, n: int) -> str | None:
+    """A warning when the recording's mean (DC offset) adds >= ``DC_WARNING_DB`` to LZeq.
+
+    The DC part of the mean square is mean(x)^2; removing it lowers the Z-weighted level by
+    ``-10 lg(1 - mean^2 / ms)`` (energy arithmetic). A and C weighting block DC, so only the
+    Z-weighted quantities (LZeq, LZpeak, Z bands below the lowest band) are affected.
+    """
+    if n <= 0 or sum_x2 <= 0:
+        return None
+    mean = sum_x / n
+    share = min(mean * mean / (sum_x2 / n), 1.0)
+    if share >= 1.0:
+        return ("the recording is a constant (DC) value: no sound; check the recorder and "
+                "its input")
+    raised = -10.0 * math.log10(1.0 - share)
+    if raised < DC_WARNING_DB:
+        return None
+    return (f"DC offset of {mean:+.4g} (full scale 1) raises LZeq and LZpeak by {raised:.2f} "
+            "dB (A and C are not affected); check the recorder's input or high-pass the file")
+
+
 def analyse_file(
     path: str,
     calibration: Any | None,
@@ -857,6 +884,10 @@ def analyse_recordings(
             f"{overall.full_scale_samples} sample(s) at or beyond full scale in {flagged} "
             "interval(s): possible overload, levels there may be too low; see the overload flags"
         )
+    warnings.extend(w for w in (rec.info.truncation_warning() for rec in recordings) if w)
+    dc = dc_offset_warning(engine.sum_x, float(engine.acc["sum_z2"].sum()), frames)
+    if dc:
+        warnings.append(dc)
     if calibration is not None:
         warnings.extend(f"calibration: {w}" for w in calibration.warnings)
     hashes = (list(known_sha256) if known_sha256 is not None

@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from ..audio import DEFAULT_BLOCK_FRAMES, Recording, count_full_scale, read_info
-from ..cli import cli, echo_json
+from ..cli import cli, echo_json, warn
 from ..textout import key_values
 
 
@@ -36,7 +36,10 @@ def info_command(files: tuple[str, ...], channel: int, as_json: bool) -> None:
         record = header.to_dict()
         record["channel"] = channel
         record["full_scale_samples"] = full_scale_count(path, channel)
+        record["truncated"] = header.truncated
         results.append(record)
+        if header.truncated:
+            warn(header.truncation_warning() or "")
     if as_json:
         echo_json({"files": results})
         return
@@ -49,4 +52,6 @@ def info_command(files: tuple[str, ...], channel: int, as_json: bool) -> None:
             ("channels", record["channels"]),
             ("duration", f"{record['duration_s']:.3f} s ({record['frames']} samples)"),
             (f"full scale (ch {channel})", f"{record['full_scale_samples']} sample(s)"),
+            ("truncated", "YES: the header declares more audio than the file holds"
+             if record["truncated"] else "no"),
         ]))
