@@ -50,6 +50,8 @@ from .weighting import WeightingFilter
 
 #: Default percentile levels N (%), giving LAF1 ... LAF99 (common practice, no source).
 DEFAULT_PERCENTILES = (1.0, 5.0, 10.0, 50.0, 90.0, 95.0, 99.0)
+#: Bin width of the LAF level distribution in the results, dB (common practice, no source).
+DISTRIBUTION_BIN_DB = 0.1
 
 #: F time constant for band maxima, s (IEC 61672-1: F = 0.125 s).
 MIN_BANDWIDTH_TIME = 10.0  # B x T below which band levels are flagged
@@ -598,6 +600,29 @@ class LevelEngine:
                                level_offset_db, calibrated, start_time, -1)[0]
         return overall, intervals
 
+    def distribution(self, level_offset_db: float, calibrated: bool,
+                     bin_width_db: float = DISTRIBUTION_BIN_DB) -> dict[str, Any]:
+        """Whole-recording distribution of the LAF level (the percentile histogram, coarser).
+
+        Parameters
+        ----------
+        level_offset_db : float
+            ``full_scale_level_db`` of the calibration (0 for dB re full scale).
+        calibrated : bool
+            Key ``"LAF"`` when True, ``"LAF_dBFS"`` otherwise.
+        bin_width_db : float
+            Bin width, dB.
+
+        Returns
+        -------
+        dict
+            ``metric`` plus the keys of :meth:`bandmeter.levels.LevelHistogram.distribution`
+            (levels in dB re 20 uPa when calibrated, dB re full scale otherwise).
+        """
+        metric = "LAF" if calibrated else "LAF" + DBFS_SUFFIX
+        return {"metric": metric, **self.overall_histogram.distribution(
+            bin_width_db, level_offset_db + _TEN_LG_2)}
+
     def _series(
         self,
         rows: dict[str, np.ndarray],
@@ -909,8 +934,11 @@ def analyse_recordings(
             history.bands = [BandInfo(b.nominal_hz, b.exact_hz, b.label)
                              for b in engine.bank.bands]
             history.band_key = f"L{settings.band_weighting}eq"
+    distribution = engine.distribution(
+        0.0 if calibration is None else calibration.full_scale_level_db, calibration is not None)
     return LevelResult(
         file=path,
+        distribution=distribution,
         channel=channel,
         sample_rate=info.sample_rate,
         frames=frames,

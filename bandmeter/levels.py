@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -197,6 +198,40 @@ class LevelHistogram:
         ):
             raise SettingsError("cannot merge level histograms with different bins")
         self.counts += other.counts
+
+    def distribution(self, bin_width_db: float = 0.1, offset_db: float = 0.0) -> dict[str, Any]:
+        """The counts regrouped into coarser bins, trimmed to the occupied range (plain data).
+
+        Parameters
+        ----------
+        bin_width_db : float
+            Width of the returned bins, dB: rounded to a whole number of the histogram's bins.
+        offset_db : float
+            Added to every level (e.g. 10 lg 2 + the calibration's full-scale level), dB.
+
+        Returns
+        -------
+        dict
+            ``bin_width_db``, ``first_bin_db`` (lower edge of the first bin, dB), ``counts``
+            (list of int: bin i covers ``[first + i w, first + (i + 1) w)``), ``below`` and
+            ``above`` (values under and over the histogram's range, e.g. digital silence).
+        """
+        factor = max(1, int(round(bin_width_db / self.resolution_db)))
+        inner = self.counts[1:-1]
+        occupied = np.flatnonzero(inner)
+        out: dict[str, Any] = {"bin_width_db": factor * self.resolution_db,
+                               "first_bin_db": math.nan, "counts": [],
+                               "below": int(self.counts[0]), "above": int(self.counts[-1])}
+        if occupied.size == 0:
+            return out
+        first = (int(occupied[0]) // factor) * factor
+        last = (int(occupied[-1]) // factor + 1) * factor
+        part = np.zeros(last - first, dtype=np.int64)
+        stop = min(last, inner.size)
+        part[: stop - first] = inner[first:stop]
+        out["first_bin_db"] = self.low_db + first * self.resolution_db + offset_db
+        out["counts"] = [int(c) for c in part.reshape(-1, factor).sum(axis=1)]
+        return out
 
     def exceeded(self, percents: Sequence[float] | ArrayLike) -> np.ndarray:
         """Percentile levels LN: the level exceeded for N % of the counted values.

@@ -234,6 +234,8 @@ class LevelResult:
     provenance: dict[str, Any]
     warnings: list[str] = field(default_factory=list)
     history: Any = None  # TimeHistory when AnalysisSettings.history_s was set
+    #: Whole-recording LAF level distribution (LevelEngine.distribution), or None.
+    distribution: dict[str, Any] | None = None
 
     @property
     def duration_s(self) -> float:
@@ -264,4 +266,6 @@ class LevelResult:
             "overall": self.overall.to_dict(),
             "intervals": [iv.to_dict() for iv in self.intervals],
         }
+        if self.distribution is not None:
+            out["distribution"] = self.distribution
         return out

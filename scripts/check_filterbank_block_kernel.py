@@ -60,7 +60,7 @@ def main() -> None:
                 plan = _StagePlan(soss)
                 n_bands += len(soss)
                 n_single += len(plan.singles)
-                for idx, kernel in plan.groups:
+                for idx, _, kernel in plan.groups:
                     frame = kernel.frame_for(1 << 62)
                     length = args.frames * frame + kernel.sub + 5
                     x = rng.standard_normal(length)

@@ -481,3 +481,140 @@ def test_rates_factors_and_placement(fs):
             assert band.upper_hz <= 0.375 * rate
     assert bank.factors == sorted(bank.factors, reverse=True)
     assert bank.delays_s == sorted(bank.delays_s, reverse=True)
+
+
+# --------------------------------------------------------------------------------------------
+# block state-space kernel (the fast path of the band filters)
+
+
+def _kernel_run(kernel, x: np.ndarray, cuts) -> tuple[np.ndarray, np.ndarray]:
+    """Outputs and final states of ``kernel`` fed ``x`` in the blocks ``cuts`` (zero start)."""
+    state = np.zeros((kernel.n_bands, kernel.n_states))
+    parts = []
+    for a, b in zip(cuts[:-1], cuts[1:], strict=True):
+        if b > a:
+            out = np.empty((kernel.n_bands, kernel.padded_length(b - a)))
+            kernel.process(x[a:b], state, out)
+            parts.append(out[:, : b - a].copy())
+    return np.concatenate(parts, axis=1), state
+
+
+@pytest.mark.parametrize(
+    ("fs", "b", "which"),
+    [
+        (44100.0, 1, "all"),
+        (48000.0, 3, "all"),
+        (96000.0, 3, "low"),
+        (48000.0, 6, "low"),
+        (48000.0, 12, "top"),
+        (44100.0, 24, "low"),
+        (96000.0, 24, "top"),
+    ],
+)
+def test_block_kernel_matches_scipy_sosfilt(fs, b, which):
+    # reference: scipy.signal.sosfilt (public API) with the same sections, one call, from the
+    # zero state; the kernel gets the signal in uneven blocks (long ones with 256-sample
+    # frames, short ones with 128-sample frames, partial frames and sub-frames)
+    bank = FractionalOctaveBank(fs, b, fmin_hz=1.0)
+    soss = bank.band_sos
+    picks = {"all": range(len(soss)), "low": range(4), "top": range(len(soss) - 4, len(soss))}
+    soss = [soss[i] for i in picks[which]]
+    kernel = fb._BlockKernel(soss)
+    frame, sub = fb._BLOCK_FRAME, fb._BLOCK_SUB
+    x = np.random.default_rng(b).standard_normal(70 * frame + 3 * sub + 5)
+    long = 64 * frame + 1  # takes the long frames
+    cuts = [0, 1, 3, 3 + sub - 1, long, long + frame // 2 + 1, long + frame + sub, x.size]
+    got, state = _kernel_run(kernel, x, cuts)
+    for j, sos in enumerate(soss):
+        ref, zf = signal.sosfilt(sos, x, zi=np.zeros((sos.shape[0], 2)))
+        rms = np.sqrt(np.mean(ref**2))
+        assert np.max(np.abs(got[j] - ref)) <= 1e-11 * rms, j
+        assert np.max(np.abs(state[j] - zf[::-1].ravel())) <= 1e-11 * np.max(np.abs(zf)), j
+
+
+def test_block_kernel_short_blocks_and_state_layout():
+    # blocks of 1, 2, L-1, L, L+1 samples for L = sub-frame and frame lengths; the final state
+    # equals sosfilt's zi with the sections in reverse order (scipy.signal.sosfilt reference)
+    sos = FractionalOctaveBank(8000.0, 3, fmin_hz=100.0, fmax_hz=100.0).band_sos[0]
+    kernel = fb._BlockKernel([sos])
+    sub, frame = fb._BLOCK_SUB, fb._BLOCK_FRAME // 2
+    lengths = [1, 2, sub - 1, sub, sub + 1, frame - 1, frame, frame + 1, 1, 2 * frame + 3]
+    x = np.random.default_rng(12).standard_normal(sum(lengths))
+    got, state = _kernel_run(kernel, x, np.cumsum([0, *lengths]))
+    ref, zf = signal.sosfilt(sos, x, zi=np.zeros((sos.shape[0], 2)))
+    assert np.max(np.abs(got[0] - ref)) <= 1e-12 * np.max(np.abs(ref))
+    assert np.allclose(state[0], zf[::-1].ravel(), rtol=0, atol=1e-12 * np.max(np.abs(zf)))
+
+
+def _bank_outputs_with(monkeypatch, bank, x, cuts, min_samples) -> list[np.ndarray]:
+    monkeypatch.setattr(fb, "_BLOCK_MIN_SAMPLES", min_samples)
+    return _outputs(bank, x, cuts)
+
+
+@pytest.mark.parametrize("b", [1, 3])
+def test_block_path_streaming_random_splits(monkeypatch, b):
+    # every block on the block path (threshold 1), split at random and into blocks of 0, 1, 2,
+    # L-1, L, L+1 samples (L = sub-frame, frame), equals the sosfilt path in one block
+    fs = 8000.0
+    bank = FractionalOctaveBank(fs, b, fmin_hz=20.0)
+    rng = np.random.default_rng(13)
+    sub, frame = fb._BLOCK_SUB, fb._BLOCK_FRAME // 2
+    small = [0, 1, 2, sub - 1, sub, sub + 1, frame - 1, frame, frame + 1, 0, 2 * frame - 1]
+    x = rng.standard_normal(9_001 + sum(small))
+    ref = _bank_outputs_with(monkeypatch, bank, x, [0, x.size], 1 << 62)
+    splits = {
+        "random": np.r_[0, np.sort(rng.integers(0, x.size, 40)), x.size],
+        "small_then_rest": np.r_[np.cumsum([0, *small]), x.size],
+    }
+    for name, cuts in splits.items():
+        for threshold in (1, 2048):  # block path everywhere / only for long stage blocks
+            got = _bank_outputs_with(monkeypatch, bank, x, cuts, threshold)
+            for i, (g, r) in enumerate(zip(got, ref, strict=True)):
+                assert g.size == r.size == math.ceil(x.size / bank.factors[i]), (name, i)
+                scale = max(np.max(np.abs(r)), 1e-300)
+                assert np.max(np.abs(g - r)) <= 1e-12 * scale, (name, threshold, i)
+
+
+def test_block_path_is_taken_for_long_blocks_and_matches_sosfilt(monkeypatch):
+    fs = 48000.0
+    bank = FractionalOctaveBank(fs, 3)
+    x = np.random.default_rng(14).standard_normal(int(1.5 * fs))
+    fast = [y.copy() for y in bank.process(x)]
+    lengths = [math.ceil(x.size / f) for f in sorted(set(bank.factors))]
+    for k, plan in enumerate(bank._plans):
+        long_enough = lengths[k] >= fb._BLOCK_MIN_SAMPLES
+        assert (plan is not None) == long_enough, k
+        if plan is not None:
+            assert plan.singles == [] and plan.groups, k  # every band passed the probe
+    bank.reset()
+    monkeypatch.setattr(fb, "_BLOCK_MIN_SAMPLES", 1 << 62)
+    slow = bank.process(x)
+    for i, (a, c) in enumerate(zip(fast, slow, strict=True)):
+        assert np.max(np.abs(a - c)) <= 1e-12 * np.sqrt(np.mean(c**2)), bank.bands[i].label
+
+
+def test_band_failing_the_probe_stays_on_sosfilt(monkeypatch):
+    monkeypatch.setattr(fb, "_BLOCK_TOL", -1.0)  # no band can pass
+    bank = FractionalOctaveBank(8000.0, 3, fmin_hz=500.0)
+    x = np.random.default_rng(15).standard_normal(8000)
+    got = bank.process(x)
+    plan = bank._plans[0]
+    assert plan.groups == [] and plan.singles == list(range(len(bank._by_stage[0])))
+    for i, y in enumerate(got):
+        v = x
+        for _ in range(int(math.log2(bank.factors[i]))):
+            v = signal.lfilter(fb.HALFBAND_TAPS, 1.0, v)[0::2]
+        ref = signal.sosfilt(bank.band_sos[i], v)  # scipy reference
+        assert np.max(np.abs(y - ref)) < 1e-12 * np.max(np.abs(ref))
+
+
+def test_block_path_flushes_tiny_states_after_silence():
+    # the block path leaves states below 1e-200 at zero as sosfilt's path does
+    bank = FractionalOctaveBank(48000.0, 1)
+    bank.process(np.random.default_rng(16).standard_normal(48000))
+    assert any(p is not None and p.groups for p in bank._plans)
+    for _ in range(4):
+        bank.process(np.zeros(48000 * 4))
+    z = np.abs(bank._zi)
+    assert np.all((z == 0.0) | (z >= 1e-200))
+    assert np.count_nonzero(z) < z.size  # the fast-decaying top bands reached zero
