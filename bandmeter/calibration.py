@@ -32,6 +32,9 @@ the spectrum averaged over the whole file, where hours of other sound can bury a
    tone level and broadband level both stay within :data:`STEADY_TOLERANCE_DB` of the run's
    medians is the steady part; :data:`EDGE_MARGIN_S` is trimmed at each end that borders
    unsteady frames (seating, removal, handling), none at the file's own start or end.
+   The same frames, over the whole file (also when a span is given; that pass then counts
+   the file's clipped samples too), give the tone's level history kept for plots
+   (:class:`ToneLevelHistory`).
 3. *Measurement*: 1 s segments with 50 % overlap (Blackman-Harris window) over the span. The tone
    power is the band sum of the spectrum within :data:`TONE_BAND_HALF_WIDTH_HZ` of the tone,
    normalised by the window energy (Parseval), so noise outside that 20 Hz band does not count:
@@ -54,7 +57,7 @@ import json
 import math
 import os
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 from typing import Any
 
@@ -75,6 +78,7 @@ __all__ = [
     "Calibration",
     "CalibratorCheck",
     "LimitValue",
+    "ToneLevelHistory",
     "ToneMeasurement",
     "ToneSummary",
     "calibrate",
@@ -144,6 +148,13 @@ SEGMENT_FRAMES = 10
 
 #: Shortest span that can be measured, s (two 1 s segments with 50 % overlap).
 MIN_SPAN_S = 1.5
+
+#: Most steps kept in a tone's level history (:class:`ToneLevelHistory`); a longer tone file
+#: gets coarser steps, so a calibration file stays small (common practice, no source).
+HISTORY_MAX_POINTS = 2000
+
+#: Steps of the level history in frames of FRAME_S (0.1, 0.2, 0.5, 1, 2, 5 ... s).
+_HISTORY_FACTORS = (1, 2, 5, 10, 20, 50, 100, 200, 500, 1000, 2000, 5000, 10000)
 
 #: Margin trimmed from an automatically found steady stretch where it borders unsteady
 #: frames, s.
@@ -243,6 +254,82 @@ def _check_number(value: object, name: str, low: float, high: float) -> float:
 
 
 @dataclass(frozen=True)
+class ToneLevelHistory:
+    """The tone's level step by step over the whole tone file (for plots and reports).
+
+    Attributes
+    ----------
+    step_s : float
+        Step, s: a whole number of :data:`FRAME_S` frames, 0.1 s or coarser (0.2, 0.5, 1,
+        2, 5 ... s) so that a long file has at most :data:`HISTORY_MAX_POINTS` steps.
+    levels_dbfs : tuple of (float or None)
+        Level of step ``i``, which covers ``[i step_s, (i + 1) step_s)`` s from the start of
+        the file (the last step may be shorter), dB re full scale: the energy mean of the
+        100 ms frame levels of the steady-span search (Hann DFT at the tone frequency, so
+        sound within about 20 Hz of the tone counts too), rounded to 0.001 dB. None where
+        the frames hold no tone energy (digital silence).
+    """
+
+    step_s: float
+    levels_dbfs: tuple[float | None, ...]
+
+    def times_s(self) -> np.ndarray:
+        """Start of each step, s from the start of the file."""
+        return np.arange(len(self.levels_dbfs)) * self.step_s
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dictionary (``step_s``, ``levels_dbfs`` with null for silence)."""
+        return {"step_s": self.step_s, "levels_dbfs": list(self.levels_dbfs)}
+
+    @classmethod
+    def from_dict(cls, data: Any, source: str = "level history") -> ToneLevelHistory:
+        """Rebuild from :meth:`to_dict` output.
+
+        Raises
+        ------
+        CalibrationError
+            Not an object, or a malformed ``step_s`` or ``levels_dbfs``.
+        """
+        if not isinstance(data, Mapping):
+            raise CalibrationError(f"{source}: expected an object or null, got {data!r}")
+        step = _req_number(data, "step_s", source)
+        if not step > 0:
+            raise _bad(source, "step_s", step, "a number > 0")
+        levels = _req_key(data, "levels_dbfs", source)
+        if not isinstance(levels, list) or not all(
+            v is None or (isinstance(v, (int, float)) and not isinstance(v, bool)
+                          and math.isfinite(v)) for v in levels
+        ):
+            raise _bad(source, "levels_dbfs", levels, "a list of finite numbers or nulls")
+        return cls(step, tuple(None if v is None else float(v) for v in levels))
+
+
+def _history_or_none(data: Mapping[str, Any], source: str) -> ToneLevelHistory | None:
+    """The optional ``level_history`` key (absent in files of earlier bandmeter versions)."""
+    value = data.get("level_history")
+    if value is None:
+        return None
+    return ToneLevelHistory.from_dict(value, f"{source}: level_history")
+
+
+def _level_history(tone_power: np.ndarray, frame_len: int, fs: float) -> ToneLevelHistory:
+    """Level history from the tone mean square of each frame (on the +-1 scale)."""
+    n = int(tone_power.size)
+    factor = next((f for f in _HISTORY_FACTORS if -(-n // f) <= HISTORY_MAX_POINTS),
+                  -(-n // HISTORY_MAX_POINTS))
+    groups = -(-n // factor)
+    padded = np.zeros(groups * factor)
+    padded[:n] = tone_power
+    sums = padded.reshape(groups, factor).sum(axis=1)
+    counts = np.full(groups, float(factor))
+    counts[-1] = n - (groups - 1) * factor
+    mean = sums / counts
+    levels = tuple(round(10.0 * math.log10(2.0 * float(ms)), 3) if ms > 0 else None
+                   for ms in mean)
+    return ToneLevelHistory(factor * frame_len / fs, levels)
+
+
+@dataclass(frozen=True)
 class ToneMeasurement:
     """A calibrator tone measured in one recording channel.
 
@@ -281,6 +368,8 @@ class ToneMeasurement:
         ``100 (frequency_hz - nominal) / nominal``, %.
     warnings : list of str
         Problems that do not prevent the measurement.
+    level_history : ToneLevelHistory or None
+        The tone's level over the whole file, step by step (for plots).
     """
 
     source_file: str
@@ -299,12 +388,14 @@ class ToneMeasurement:
     nominal_frequency_hz: float
     frequency_deviation_percent: float
     warnings: list[str] = field(default_factory=list)
+    level_history: ToneLevelHistory | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dictionary."""
         out = dict(self.__dict__)
         out["span_s"] = list(self.span_s)
         out["warnings"] = list(self.warnings)
+        out["level_history"] = _history_dict(self.level_history)
         return out
 
 
@@ -326,6 +417,8 @@ class ToneSummary:
         Part measured, s.
     warnings : list of str
         Warnings of that measurement.
+    level_history : ToneLevelHistory or None
+        The tone's level over the whole file (None in files of earlier versions).
     """
 
     source_file: str
@@ -338,6 +431,7 @@ class ToneSummary:
     thdn_percent: float
     span_s: tuple[float, float]
     warnings: list[str] = field(default_factory=list)
+    level_history: ToneLevelHistory | None = None
 
     @classmethod
     def from_measurement(cls, tone: ToneMeasurement, sha256: str) -> ToneSummary:
@@ -353,14 +447,29 @@ class ToneSummary:
             thdn_percent=tone.thdn_percent,
             span_s=tone.span_s,
             warnings=list(tone.warnings),
+            level_history=tone.level_history,
         )
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready dictionary."""
+        """JSON-ready dictionary (``level_history`` only when there is one)."""
         out = dict(self.__dict__)
         out["span_s"] = list(self.span_s)
         out["warnings"] = list(self.warnings)
+        _put_history(out, self.level_history)
         return out
+
+
+def _history_dict(history: ToneLevelHistory | None) -> dict[str, Any] | None:
+    return None if history is None else history.to_dict()
+
+
+def _put_history(out: dict[str, Any], history: ToneLevelHistory | None) -> None:
+    """Set ``out["level_history"]``, or drop the key when there is no history (so the JSON
+    of a calibration without one, and its :func:`~bandmeter.calmap.calibration_id`, stay as
+    earlier versions wrote them)."""
+    out.pop("level_history", None)
+    if history is not None:
+        out["level_history"] = history.to_dict()
 
 
 _NUMBER_KEYS_OPTIONAL = (
@@ -410,6 +519,9 @@ class Calibration:
         Post-survey tone, if one was measured.
     drift_db : float or None
         Post minus pre tone level, dB (positive: the chain was more sensitive after).
+    level_history : ToneLevelHistory or None
+        The pre tone's level over its whole file (for plots); None for a stated sensitivity
+        and in files of earlier versions.
     """
 
     full_scale_level_db: float
@@ -429,6 +541,7 @@ class Calibration:
     warnings: list[str] = field(default_factory=list)
     post: ToneSummary | None = None
     drift_db: float | None = None
+    level_history: ToneLevelHistory | None = None
 
     @property
     def pascal_per_unit(self) -> float:
@@ -479,9 +592,9 @@ class Calibration:
     # -- serialisation --------------------------------------------------------------------
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready dictionary, with ``format``, ``schema_version`` and (informative)
-        ``pascal_per_unit``."""
-        return {
+        """JSON-ready dictionary, with ``format``, ``schema_version``, (informative)
+        ``pascal_per_unit`` and, when there is one, ``level_history``."""
+        out = {
             "format": CALIBRATION_FORMAT,
             "schema_version": CALIBRATION_SCHEMA_VERSION,
             "full_scale_level_db": self.full_scale_level_db,
@@ -503,6 +616,8 @@ class Calibration:
             "post": None if self.post is None else self.post.to_dict(),
             "drift_db": self.drift_db,
         }
+        _put_history(out, self.level_history)
+        return out
 
     def to_json(self) -> str:
         """The calibration as indented JSON text."""
@@ -578,6 +693,7 @@ class Calibration:
             created=_req_time(data, "created", source),
             warnings=_req_str_list(data, "warnings", source),
             post=post,
+            level_history=_history_or_none(data, source),
             **numbers,
         )
 
@@ -706,6 +822,7 @@ def _summary_from_dict(data: Any, source: str) -> ToneSummary:
         thdn_percent=_req_number(data, "thdn_percent", source),
         span_s=_req_span(data, "span_s", source),
         warnings=_req_str_list(data, "warnings", source),
+        level_history=_history_or_none(data, source),
     )
 
 
@@ -766,11 +883,6 @@ def _scan(rec: Recording, start: int, stop: int, chunk_len: int) -> _Scan:
     if n_chunks == 0:
         return _Scan(acc, chunk_len, w_energy, 0.0, clipped)
     return _Scan(acc / n_chunks, chunk_len, w_energy, power / n_chunks, clipped)
-
-
-def _count_clipped(rec: Recording) -> int:
-    threshold = rec.info.full_scale_threshold
-    return sum(count_full_scale(b, threshold) for b in rec.blocks(_READ_BLOCK_FRAMES))
 
 
 def _band_power(scan: _Scan, fs: float, centre_hz: float) -> float:
@@ -869,15 +981,19 @@ def _check_second_tone(
 
 def _frame_levels(
     rec: Recording, frame_len: int, segment_len: int, f_hz: float
-) -> tuple[np.ndarray, np.ndarray]:
-    """Pass 2: tone (narrow band, Hann DFT at ``f_hz``) and broadband AC power per frame."""
+) -> tuple[np.ndarray, np.ndarray, int]:
+    """Pass 2: tone (narrow band, Hann DFT at ``f_hz``) and broadband AC power per frame,
+    and the samples at or beyond full scale in the whole file."""
     fs = rec.sample_rate
     window = windows.hann(frame_len, sym=False)
     w_sum = float(np.sum(window))
     kernel = window * np.exp(-2j * np.pi * f_hz * np.arange(frame_len) / fs)
+    threshold = rec.info.full_scale_threshold
     tone_parts: list[np.ndarray] = []
     broad_parts: list[np.ndarray] = []
+    clipped = 0
     for _, chunk in _chunks(rec, 0, rec.frames, segment_len, segment_len, partial=True):
+        clipped += count_full_scale(chunk, threshold)
         n_full = chunk.size // frame_len
         if n_full == 0:
             continue
@@ -886,7 +1002,7 @@ def _frame_levels(
         amplitude = 2.0 * np.abs(ac @ kernel) / w_sum
         tone_parts.append(amplitude**2 / 2.0)
         broad_parts.append(np.mean(ac**2, axis=1))
-    return np.concatenate(tone_parts), np.concatenate(broad_parts)
+    return np.concatenate(tone_parts), np.concatenate(broad_parts), clipped
 
 
 def _longest_run(mask: np.ndarray) -> tuple[int, int]:
@@ -1065,20 +1181,22 @@ def measure_tone(
         scan = _scan(recording, 0, recording.frames, segment_len)
         clipped_file = scan.clipped
         f_coarse = _detect_tone(scan, fs, where)
-        start, stop = _auto_span(recording, frame_len, segment_len, f_coarse, where)
+        start, stop, tone_p = _auto_span(recording, frame_len, segment_len, f_coarse, where)
     else:
         scan = _scan(recording, start, stop, segment_len)
         f_coarse = _detect_tone(scan, fs, f"{where}, span {span_s[0]:g}..{span_s[1]:g} s")
-        clipped_file = _count_clipped(recording)
+        tone_p, _, clipped_file = _frame_levels(recording, frame_len, segment_len, f_coarse)
     result = _measure_span(recording, start, stop, segment_len, f_coarse)
-    return _tone_result(recording, result, start, span_s is None, clipped_file, nominal)
+    tone = _tone_result(recording, result, start, span_s is None, clipped_file, nominal)
+    return replace(tone, level_history=_level_history(tone_p, frame_len, fs))
 
 
 def _auto_span(
     rec: Recording, frame_len: int, segment_len: int, f_hz: float, where: str
-) -> tuple[int, int]:
-    """Sample range of the steady part of the tone (pass 2)."""
-    tone_p, broad_p = _frame_levels(rec, frame_len, segment_len, f_hz)
+) -> tuple[int, int, np.ndarray]:
+    """Sample range of the steady part of the tone (pass 2), and the tone power of each
+    frame."""
+    tone_p, broad_p, _ = _frame_levels(rec, frame_len, segment_len, f_hz)
     with np.errstate(divide="ignore"):
         a, b = _steady_run(10.0 * np.log10(tone_p), 10.0 * np.log10(broad_p))
     margin = int(round(EDGE_MARGIN_S / FRAME_S))
@@ -1095,7 +1213,7 @@ def _auto_span(
             f"{EDGE_MARGIN_S:g} s trimmed at each unsteady end); hold the calibrator still on the "
             f"microphone for 10 s or more, or give the span to measure"
         )
-    return start, stop
+    return start, stop, tone_p
 
 
 def _tone_result(
@@ -1298,6 +1416,7 @@ def calibrate(
         warnings=warnings,
         post=post_summary,
         drift_db=drift,
+        level_history=pre.level_history,
     )
 
 

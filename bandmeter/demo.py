@@ -52,6 +52,7 @@ FILES = {
     "calibration": "mp2.cal.json",
     "levels_csv": "mp2_night_levels.csv",
     "bands_csv": "mp2_night_bands.csv",
+    "report": "mp2_report.html",
 }
 #: The chiller's 100 Hz hum, dB re 20 uPa (RMS of the fundamental; the demo test reads it
 #: back from the 100 Hz one-third-octave band of the first 10 s, before the lorry comes).
@@ -172,7 +173,8 @@ def run_demo(out_dir: str | os.PathLike[str] | None = None, force: bool = False)
     cal.save(files["calibration"], force=force)
     # broadband metrics and one-third-octave bands (with F maxima) in one streaming pass
     settings = AnalysisSettings(interval_s=10.0, bands=3, band_max=True)
-    levels = analyse_file(files["site"], cal, settings)
+    levels = analyse_file(files["site"], cal, settings,
+                          start_time=datetime.fromisoformat(DEMO_START))
     from .tables import tidy_band_rows, wide_rows, write_csv
 
     files["levels_csv"] = str(Path(out_dir) / FILES["levels_csv"])
@@ -190,7 +192,24 @@ def run_demo(out_dir: str | os.PathLike[str] | None = None, force: bool = False)
     files["batch"] = batch_dir
     result = DemoResult(str(out_dir), files, cal, levels, report)
     _assessments(result, cal, force)
+    files["report"] = str(Path(out_dir) / FILES["report"])
+    write_demo_report(result, files["report"], force)
     return result
+
+
+def write_demo_report(result: DemoResult, path: str, force: bool = False) -> None:
+    """The demo's HTML report: the night recording with its events, rating and exposure."""
+    from .report import Included, build_report, source_from_result, write_report
+
+    included = [
+        Included("night events", "events",
+                 {"file": result.levels.file, **result.events.to_dict()}),
+        Included("depot monitor rating", "rating", result.rating.to_dict()),
+        Included("yard marshal exposure", "exposure", result.exposure.to_dict()),
+    ]
+    text = build_report(source_from_result(result.levels), included,
+                        title="Night survey at the (invented) Larkspur Lane depot, MP2")
+    write_report(path, text, force=force)
 
 
 def monitor_hourly(seed: int = SEED + 30) -> tuple[list[datetime], np.ndarray]:

@@ -580,3 +580,66 @@ def test_check_calibrator_class_2_and_frequency(tmp_path, chain):
         check_calibrator(path, chain, nominal_level_db=94.0, calibrator_class="0")
     with pytest.raises(CalibrationError, match="channel"):
         check_calibrator(path, chain, nominal_level_db=94.0, channel=2)
+
+
+# --------------------------------------------------------------------------------------------
+# tone level history (for plots)
+# --------------------------------------------------------------------------------------------
+
+
+def test_level_history_follows_the_tone(tmp_path):
+    path = write(tmp_path, "seated.wav", seated_tone())
+    history = measure(path).level_history
+    assert history.step_s == pytest.approx(0.1, abs=1e-12)
+    assert len(history.levels_dbfs) == 80  # 8 s in 100 ms frames
+    levels = np.array([math.nan if v is None else v for v in history.levels_dbfs])
+    # steady tone 2.0..5.5 s: analytic -20 dBFS (peak 0.1); the seating overshoot has decayed
+    # to 0.07 dB at 2 s and the handling burst at 5.5 s is outside
+    np.testing.assert_allclose(levels[20:55], -20.0, atol=0.1)
+    # before seating only the -70 dBFS white background: its share in a 100 ms Hann DFT
+    # (noise bandwidth 15 Hz of 24 kHz) is about -102 dBFS, far below the tone
+    assert np.all(levels[:9] < -60.0)
+    # a given span gives the same history over the whole file
+    given = measure(path, span_s=(2.0, 5.0)).level_history
+    assert len(given.levels_dbfs) == 80
+    np.testing.assert_allclose(
+        [math.nan if v is None else v for v in given.levels_dbfs], levels, atol=0.01)
+
+
+def test_level_history_is_bounded_for_long_files():
+    frame_len = int(calmod.FRAME_S * FS)
+    ms = 0.005  # mean square of a sine of peak 0.1: -20 dBFS (analytic)
+    hour = calmod._level_history(np.full(36000, ms), frame_len, FS)  # one hour of frames
+    assert hour.step_s == pytest.approx(2.0) and len(hour.levels_dbfs) == 1800
+    assert len(hour.levels_dbfs) <= calmod.HISTORY_MAX_POINTS
+    assert set(hour.levels_dbfs) == {-20.0}
+    power = np.full(2001, ms)
+    power[0] = 0.0  # a silent frame: energy mean of (0, ms) is ms/2, 3.010 dB lower
+    power[-1] = 0.0  # the last, one-frame step is silent
+    short = calmod._level_history(power, frame_len, FS)
+    assert short.step_s == pytest.approx(0.2) and len(short.levels_dbfs) == 1001
+    assert short.levels_dbfs[0] == pytest.approx(-20.0 - 10 * math.log10(2), abs=1e-3)
+    assert short.levels_dbfs[-1] is None
+
+
+def test_level_history_in_calibration_files_and_older_files(tmp_path):
+    pre = write(tmp_path, "pre.wav", sine(1000.0, 3.0, -20.0))
+    post = write(tmp_path, "post.wav", sine(1000.0, 3.0, -19.5))
+    cal = calibrate(pre, 94.0, after_path=post)
+    data = cal.to_dict()
+    assert data["level_history"]["step_s"] == pytest.approx(0.1)
+    assert len(data["level_history"]["levels_dbfs"]) == 30
+    assert data["post"]["level_history"]["levels_dbfs"][15] == pytest.approx(-19.5, abs=0.01)
+    assert Calibration.from_dict(json.loads(cal.to_json())) == cal
+    # a file written before histories were kept: no level_history keys; it loads, and
+    # writes back exactly as it was (so its calibration id does not change)
+    old = json.loads(cal.to_json())
+    old.pop("level_history")
+    old["post"].pop("level_history")
+    back = Calibration.from_dict(old)
+    assert back.level_history is None and back.post.level_history is None
+    assert back.to_dict() == old
+    bad = json.loads(cal.to_json())
+    bad["level_history"]["levels_dbfs"][3] = "loud"
+    with pytest.raises(CalibrationError, match="level_history: key 'levels_dbfs' must be"):
+        Calibration.from_dict(bad, source="x.json")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 
 import numpy as np
 import pytest
@@ -230,6 +231,11 @@ def test_demo_recovers_its_known_scale(tmp_path):
     assert "00:01:15" in result.stdout.split("4. Noise events")[1].split("5. ")[0]
     assert "Lden" in result.stdout and "LEX,8h" in result.stdout
     assert "Indicative only" in result.stdout
+    report = os.path.join(out, "mp2_report.html")
+    assert f"7. Report (figures, tables, assessments, provenance): {report}" in result.stdout
+    text = open(report, encoding="utf-8").read()
+    assert text.startswith("<!DOCTYPE html>") and text.count('<figure class="fig-') == 5
+    assert "night events" in text and "LEX,8h" in text and "Results are indicative" in text
     assert run("demo", "--out", out).exit_code == 1  # no overwrite without --force
     assert run("demo", "--out", out, "--force").exit_code == 0
     assert math.isfinite(cal.stability_db)

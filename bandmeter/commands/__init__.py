@@ -9,5 +9,7 @@ from . import (  # noqa: F401
     exposure,
     info,
     levels,
+    plot,
     rating,
+    report,
 )

@@ -73,6 +73,8 @@ def demo_command(out_dir: str | None, force: bool) -> None:
     click.echo("6. Daily noise exposure of the yard marshal (6 h at MP2, 2 h in the workshop)")
     click.echo(render_exposure(result.exposure))
     click.echo("")
+    click.echo(f"7. Report (figures, tables, assessments, provenance): {result.files['report']}")
+    click.echo("")
     click.echo("Files written:")
     for role, path in result.files.items():
         click.echo(f"  {role:12s} {path}")

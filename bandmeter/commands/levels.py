@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 from datetime import datetime
 
 import click
@@ -75,13 +76,17 @@ def render_levels(result: LevelResult) -> str:
     """Readable terminal rendering of a level analysis."""
     lines = [result.file]
     cal = result.calibration
-    lines.append(key_values([
+    pairs: list[tuple[str, object]] = [
         ("channel", result.channel),
         ("duration", f"{result.duration_s:.3f} s at {result.sample_rate} Hz"),
         ("levels in", result.unit),
         ("calibration", "none" if cal is None else f"full scale = "
                         f"{cal['full_scale_level_db']:.2f} dB re 20 uPa ({cal['source_file']})"),
-    ]))
+    ]
+    if result.overall.overload:
+        pairs.append(("OVERLOAD", f"{result.overall.full_scale_samples} sample(s) at or beyond "
+                                  "full scale; levels there may be too low"))
+    lines.append(key_values(pairs))
     metrics = result.overall.metrics
     keys = list(metrics)
     half = (len(keys) + 1) // 2
@@ -149,7 +154,7 @@ def render_tones(screening) -> str:
 
 
 @cli.command("levels")
-@click.argument("file", type=click.Path(dir_okay=True))
+@click.argument("file", type=click.Path(dir_okay=True, readable=False))  # checked in audio
 @calibration_options
 @channel_option
 @click.option("--dbfs", is_flag=True,
@@ -159,13 +164,15 @@ def render_tones(screening) -> str:
               help="With -o and --bands: one CSV row per interval x band instead of wide rows.")
 @click.option("--start", "start", metavar="ISO8601",
               help="Clock time of the first sample, e.g. 2026-05-14T22:00:00+01:00.")
+@click.option("--report", "report", type=click.Path(dir_okay=False), metavar="REPORT.html",
+              help="Also write a self-contained HTML report of the result (atomic).")
 @output_options
 def levels_command(
     file: str, cal_path: str | None, cal_tone: str | None, cal_level: float | None,
     cal_span: str | None, full_scale_level: float | None, channel: int, dbfs: bool,
     interval: str | None, percentiles: str, bands: str | None, fmin: float | None,
     fmax: float | None, band_weighting: str, band_max: bool, tidy: bool, start: str | None,
-    as_json: bool, output: str | None, force: bool,
+    report: str | None, as_json: bool, output: str | None, force: bool,
 ) -> None:
     """Sound levels of a recording: Leq, maxima, minima, peaks, LE and percentiles.
 
@@ -185,10 +192,14 @@ def levels_command(
         raise SettingsError("--tidy needs --bands and -o")
     settings = settings_from_options(interval, percentiles, bands, fmin, fmax,
                                      band_weighting, band_max)
-    if output is not None:
-        from ..outputs import check_writable
+    from ..outputs import check_writable
 
-        check_writable(output, force)  # fail before the analysis, not after
+    for path in (output, report):
+        if path is not None:
+            check_writable(path, force)  # fail before the analysis, not after
+    if output is not None and report is not None and os.path.abspath(output) == \
+            os.path.abspath(report):
+        raise SettingsError("-o and --report name the same file; give two names")
     result = analyse_file(file, calibration, settings, channel=channel,
                           start_time=parse_start(start), allow_uncalibrated=dbfs)
     if output is not None:
@@ -206,5 +217,11 @@ def levels_command(
             click.echo(render_tones(screening))
         if output is not None:
             click.echo(f"\nwritten: {output}")
+    if report is not None:
+        from ..report import build_report, source_from_result, write_report
+
+        write_report(report, build_report(source_from_result(result, file)), force=force)
+        if not as_json:
+            click.echo(f"report: {report}")
     for message in result.warnings:
         warn(message)
