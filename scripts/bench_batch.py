@@ -57,6 +57,21 @@ def main() -> None:
             base = base or wall
             print(f"  {label:22s} {wall:7.1f} s  {audio_h / (wall / 3600):8.0f} audio h per h"
                   f"  speed-up {base / wall:4.2f}")
+        print(f"  Dask local cluster start and stop alone: {dask_overhead_s():.1f} s (a fixed "
+              "cost per batch run, included above)")
+
+
+def dask_overhead_s() -> float:
+    """Wall time to start and stop a two-worker LocalCluster and its client, s."""
+    from distributed import Client, LocalCluster
+
+    t0 = time.perf_counter()
+    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                           dashboard_address=None)
+    client = Client(cluster)
+    client.close()
+    cluster.close()
+    return time.perf_counter() - t0
 
 
 if __name__ == "__main__":
