@@ -27,6 +27,7 @@ from bandmeter.assess.exposure import (
     partial_lex_8h,
     reference_duration_h,
     task_contributions,
+    tasks_from_batch,
     twa_from_dose,
 )
 from bandmeter.cli import cli
@@ -327,3 +328,50 @@ def test_cli_from_recording_needs_a_calibration(tmp_path):
     result = run("--from", path, "--hours", "2")
     assert result.exit_code == 1
     assert "no calibration" in result.stderr
+
+
+def _batch_of_tasks(tmp_path, calibrated=True):
+    """An invented fitter's day in two recordings: 1 s at 90 dB and 3 s at 80 dB (1 kHz sines:
+    A weighting is 0 dB at 1 kHz, IEC 61672-1 Table 3; full-scale level 120 dB)."""
+    from bandmeter.batch import BatchOptions, run_batch
+    from bandmeter.calibration import from_full_scale_level
+
+    src = tmp_path / "day"
+    src.mkdir()
+    sf.write(src / "a_grinding.wav", sine(16000, 1000.0, 1.0, 10 ** (-30 / 20)), 16000,
+             subtype="PCM_24")
+    sf.write(src / "b_bench.wav", sine(16000, 1000.0, 3.0, 10 ** (-40 / 20)), 16000,
+             subtype="PCM_24")
+    out = tmp_path / "results"
+    options = (BatchOptions(calibration=from_full_scale_level(120.0)) if calibrated
+               else BatchOptions(allow_uncalibrated=True))
+    assert run_batch([str(src)], str(out), options, progress=False).ok
+    return str(out)
+
+
+def test_tasks_from_a_batch_folder(tmp_path):
+    folder = _batch_of_tasks(tmp_path)
+    tasks = sorted(tasks_from_batch(folder), key=lambda t: t.name)
+    assert [t.name for t in tasks] == ["a_grinding", "b_bench"]
+    assert tasks[0].laeq_db == pytest.approx(90.0, abs=0.05)
+    assert tasks[1].laeq_db == pytest.approx(80.0, abs=0.05)
+    assert [t.duration_h for t in tasks] == pytest.approx([1 / 3600, 3 / 3600])
+    # as samples of an 8 h day: the duration-weighted energy average
+    # 10 lg[(1 10^9 + 3 10^8) / 4] = 85.11 dB (ISO 9612 energy average, by hand) for 8 h,
+    # so LEX,8h = 85.11 dB(A)
+    (day,) = tasks_from_batch(folder, day_hours=8.0)
+    expected = 10 * math.log10((1e9 + 3e8) / 4)
+    assert day.laeq_db == pytest.approx(expected, abs=0.05) and day.duration_h == 8.0
+    assert assess_exposure([day]).lex_8h_db == pytest.approx(expected, abs=0.05)
+    result = run("--from-batch", folder, "--hours", "8", "--json")
+    assert result.exit_code == 0, result.output
+    assert json.loads(result.stdout)["LEX_8h_dBA"] == pytest.approx(expected, abs=0.05)
+
+
+def test_tasks_from_batch_refuse_uncalibrated_results(tmp_path):
+    folder = _batch_of_tasks(tmp_path, calibrated=False)
+    with pytest.raises(SettingsError, match="not calibrated"):
+        tasks_from_batch(folder)
+    result = run("--from-batch", folder)
+    assert result.exit_code == 1 and "not calibrated" in result.stderr
+    assert run("--from-batch", str(tmp_path)).exit_code != 0  # no manifest there

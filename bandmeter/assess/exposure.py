@@ -533,3 +533,64 @@ def parse_duration_h(text: str, require_unit: bool = True) -> float:
     if not s or "".join(n + u for n, u in parts) != s:
         raise SettingsError(f"cannot read duration {text!r}; use e.g. 2.5h, 90min or 1h30min")
     return math.fsum(parse_duration(n + u) for n, u in parts) / 3600.0
+
+
+# --------------------------------------------------------------------------------------------
+# Tasks measured in a batch
+
+
+def tasks_from_batch(folder: str, day_hours: float | None = None) -> list[Task]:
+    """Tasks measured by the recordings of a batch output folder (``bandmeter batch``).
+
+    Each recording that was analysed is one task: its whole-recording LAeq and LCpeak, named
+    after the file, lasting as long as it was measured (ISO 9612 full-day or task-based
+    strategy with the task measured for its whole duration). With ``day_hours`` the
+    recordings are instead taken as samples of one working day: one task of that duration at
+    their energy-average LAeq (weighted by measured duration) and their highest LCpeak.
+
+    Parameters
+    ----------
+    folder : str
+        Batch output folder (holds ``manifest.json`` and ``results/``).
+    day_hours : float, optional
+        Daily exposure duration the recordings represent together, h.
+
+    Raises
+    ------
+    SettingsError
+        Not a batch folder, no analysed recording, or results not calibrated (exposure needs
+        sound pressure levels).
+    """
+    import json
+    import os
+
+    from ..manifest import MANIFEST_NAME, Manifest
+
+    if not os.path.isfile(os.path.join(folder, MANIFEST_NAME)):
+        raise SettingsError(f"{folder}: not a batch output folder (no {MANIFEST_NAME})")
+    tasks = []
+    for entry in Manifest.load(folder).entries.values():
+        if entry.get("status") != "ok" or not entry.get("result_file"):
+            continue
+        path = os.path.join(folder, str(entry["result_file"]))
+        try:
+            with open(path, encoding="utf-8") as handle:
+                result = json.load(handle)
+            overall, duration_s = result["overall"], float(result["duration_s"])
+        except (OSError, ValueError, KeyError, TypeError) as exc:
+            raise SettingsError(f"{path}: unreadable batch result ({exc})") from None
+        if not result.get("calibration") or "LAeq" not in overall:
+            raise SettingsError(f"{path}: not calibrated; exposure needs levels re 20 uPa "
+                                "(rerun the batch with a calibration)")
+        name = os.path.splitext(os.path.basename(str(entry.get("path") or path)))[0]
+        peak = overall.get("LCpeak")
+        tasks.append(Task(name, float(overall["LAeq"]), duration_s / 3600.0,
+                          None if peak is None else float(peak)))
+    if not tasks:
+        raise SettingsError(f"{folder}: the batch holds no analysed recording")
+    if day_hours is None:
+        return tasks
+    peaks = [t.lcpeak_db for t in tasks if t.lcpeak_db is not None]
+    laeq = average_levels([t.laeq_db for t in tasks], [t.duration_h for t in tasks])
+    return [Task(f"{os.path.basename(os.path.normpath(folder))} ({len(tasks)} recordings)",
+                 laeq, float(day_hours), max(peaks) if peaks else None)]

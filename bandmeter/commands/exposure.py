@@ -17,6 +17,7 @@ from ..assess.exposure import (
     ValueComparison,
     assess_exposure,
     parse_duration_h,
+    tasks_from_batch,
 )
 from ..cli import cli, echo_json, warn
 from ..engine import analyse_file
@@ -182,7 +183,14 @@ def _check_recording_options(from_file: str | None, hours: float | None, name: s
 @click.option("--from", "from_file", type=click.Path(dir_okay=False),
               help="A recording representing one task: its LAeq and LCpeak are measured "
                    "(needs a calibration and --hours).")
-@click.option("--hours", type=float, help="Daily duration of the --from task, h.")
+@click.option("--from-batch", "from_batch", type=click.Path(file_okay=False, exists=True),
+              metavar="BATCH_DIR",
+              help="A batch output folder: each analysed recording is a task with its "
+                   "measured LAeq, LCpeak and duration (with --hours: together one task of "
+                   "that many hours at their average LAeq).")
+@click.option("--hours", type=float,
+              help="Daily duration of the --from task (or of the --from-batch recordings "
+                   "together), h.")
 @click.option("--name", "from_name", help="Name of the --from task (default: the file name).")
 @calibration_options
 @channel_option
@@ -192,7 +200,8 @@ def _check_recording_options(from_file: str | None, hours: float | None, name: s
                    "LEX,8h and the Directive 2003/10/EC values are always shown.")
 @output_options
 def exposure_command(
-    task_specs: tuple[str, ...], from_file: str | None, hours: float | None,
+    task_specs: tuple[str, ...], from_file: str | None, from_batch: str | None,
+    hours: float | None,
     from_name: str | None, cal_path: str | None, cal_tone: str | None, cal_level: float | None,
     cal_span: str | None, full_scale_level: float | None, channel: int,
     criteria: tuple[str, ...], as_json: bool, output: str | None, force: bool,
@@ -204,6 +213,7 @@ def exposure_command(
       bandmeter exposure --task "cutting:91.5:2h:128" --task "bench work:83:5h30min"
       bandmeter exposure --from press_line.wav --cal day1.cal.json --hours 6 \\
           --task "break room:68:1h" --criterion osha-hc -o day.csv
+      bandmeter exposure --from-batch fitter_day/results --criterion niosh
     LEX,8h = 10 lg[sum (Tm/8 h) 10^(0.1 LAeq,Tm)] (ISO 9612), compared with the
     Directive 2003/10/EC values 80/85/87 dB(A) and 135/137/140 dB(C) peak (the limit value
     allows for hearing protectors, the action values do not; levels here are without them).
@@ -212,9 +222,18 @@ def exposure_command(
     assessment by a competent person under the applicable local regulations.
     """
     cal_args = (cal_path, cal_tone, cal_level, cal_span, full_scale_level)
-    _check_recording_options(from_file, hours, from_name,
-                             any(v is not None for v in cal_args))
+    if from_batch is not None:
+        if from_file is not None:
+            raise SettingsError("give --from FILE or --from-batch DIR, not both")
+        if any(v is not None for v in cal_args) or from_name is not None:
+            raise SettingsError("--from-batch uses the batch's own calibrations; drop the "
+                                "calibration options and --name")
+    else:
+        _check_recording_options(from_file, hours, from_name,
+                                 any(v is not None for v in cal_args))
     tasks = [parse_task(spec) for spec in task_specs]
+    if from_batch is not None:
+        tasks.extend(tasks_from_batch(from_batch, hours))
     if output is not None:
         from ..outputs import check_writable
 
@@ -225,7 +244,8 @@ def exposure_command(
         task, recording = recorded_task(from_file, hours, from_name, calibration, channel)
         tasks.append(task)
     if not tasks:
-        raise SettingsError(f"no task given: use --task {TASK_FORMAT} or --from FILE --hours H")
+        raise SettingsError(f"no task given: use --task {TASK_FORMAT}, --from FILE --hours H "
+                            "or --from-batch DIR")
     doses = [c.lower() for c in dict.fromkeys(criteria) if c.lower() != "eu"]
     assessment = assess_exposure(tasks, doses)
     if output is not None:
