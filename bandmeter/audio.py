@@ -134,8 +134,20 @@ def check_readable_file(path: str) -> None:
         raise AudioError(f"{path}: no such file")
     if os.path.isdir(path):
         raise AudioError(f"{path}: is a folder, expected an audio file")
+    denied = (f"{path}: permission denied (cannot read the file); check its permissions, "
+              "or copy it to a folder you can read")
     if not os.access(path, os.R_OK):
-        raise AudioError(f"{path}: permission denied (cannot read the file)")
+        raise AudioError(denied)
+    # os.access says yes to root even where the open then fails (root-squashed network
+    # shares, mandatory access control): try the open itself, or libsndfile reports an
+    # empty "system error" that reads like a damaged file
+    try:
+        with open(path, "rb"):
+            pass
+    except PermissionError:
+        raise AudioError(denied) from None
+    except OSError as exc:
+        raise AudioError(f"{path}: cannot read the file ({exc.strerror or exc})") from None
 
 
 def _check_path(path: str) -> None:

@@ -26,7 +26,7 @@ from .calmap import CalibrationMap, calibration_id
 from .engine import AnalysisSettings
 from .errors import BandmeterError, OutputError, SettingsError
 from .inputs import expand_inputs
-from .manifest import Manifest, measurement_id, settings_hash
+from .manifest import MANIFEST_NAME, Manifest, measurement_id, settings_hash
 from .outputs import json_text, write_text
 from .progress import Progress
 
@@ -249,7 +249,17 @@ def _clear_stale_parts(out_dir: str) -> None:
                     os.unlink(os.path.join(folder, name))
 
 
+#: Files a batch writes into its output folder besides ``results/`` and the manifest.
+TABLE_NAMES = ("summary.csv", "intervals.csv", "intervals.parquet", "bands.csv",
+               "bands.parquet")
+
+
 def _prepare_out_dir(out_dir: str, options: BatchOptions) -> Manifest:
+    if not options.force and not os.path.exists(os.path.join(out_dir, MANIFEST_NAME)):
+        foreign = [n for n in TABLE_NAMES if os.path.exists(os.path.join(out_dir, n))]
+        if foreign:  # not a folder of ours: never replace someone's summary.csv silently
+            raise OutputError(f"{out_dir}: holds {', '.join(foreign)} but no bandmeter batch "
+                              "manifest; use another --out folder, or --force to replace them")
     try:
         os.makedirs(os.path.join(out_dir, RESULTS_DIR), exist_ok=True)
     except OSError as exc:
@@ -348,6 +358,8 @@ def run_batch(
             signal.signal(signal.SIGTERM, previous_handler)
     ids = [job.id for job in jobs]
     entries = [manifest.entries[i] for i in ids if i in manifest.entries]
+    if not os.path.exists(manifest.path):  # interrupted before the first result: the tables
+        manifest.save()  # below still mark the folder as ours for the rerun
     report.tables = write_tables(out_dir, entries, reused)
     return report
 

@@ -5,7 +5,8 @@ Files written in the batch output folder (all atomically):
 ``summary.csv``
     One row per measurement: id, file, number of files joined, status and error, duration,
     sample rate, channel, start time and its source, calibration id, source and full-scale
-    level, samples at full scale, warnings, and the whole-recording metrics.
+    level, the overload flag and the samples at full scale, warnings, and the
+    whole-recording metrics.
 ``intervals.csv``, ``intervals.parquet``
     One row per measurement x interval with the broadband metrics (tidy: for pandas,
     databases, spreadsheets).
@@ -13,6 +14,9 @@ Files written in the batch output folder (all atomically):
     With a band analysis: one row per measurement x interval x band (``band``,
     ``nominal_hz``, ``exact_hz`` and the band levels), and one row per measurement x band for
     the whole recording (``interval`` empty).
+
+Every row of an interval (or of the whole recording) carries ``overload`` (true when samples
+reached full scale: the levels there may be too low) and ``full_scale_samples``.
 """
 
 from __future__ import annotations
@@ -29,8 +33,8 @@ _INTERVAL_KEYS = ("index", "start_s", "start_time", "duration_s", "partial", "ov
                   "full_scale_samples")
 _SUMMARY_FIELDS = ("id", "file", "files", "status", "error", "reused", "duration_s",
                    "sample_rate", "channel", "start_time", "start_source", "calibration_id",
-                   "calibration_source", "full_scale_level_db", "full_scale_samples",
-                   "warnings")
+                   "calibration_source", "full_scale_level_db", "overload",
+                   "full_scale_samples", "warnings")
 
 
 def _load(out_dir: str, entry: dict[str, Any]) -> dict[str, Any] | None:
@@ -67,6 +71,7 @@ def summary_row(entry: dict[str, Any], data: dict[str, Any] | None, reused: bool
             "sample_rate": data["sample_rate"],
             "channel": data["channel"],
             "full_scale_level_db": cal.get("full_scale_level_db"),
+            "overload": data["overall"]["overload"],
             "full_scale_samples": data["overall"]["full_scale_samples"],
             "warnings": " | ".join(data.get("warnings") or []),
         })
@@ -91,7 +96,9 @@ def band_rows(entry_id: str, data: dict[str, Any]) -> Iterable[dict[str, Any]]:
             row = {"id": entry_id, "file": data["file"], "channel": data["channel"],
                    "interval": None if iv["index"] < 0 else iv["index"],
                    "start_s": iv["start_s"], "start_time": iv.get("start_time"),
-                   "duration_s": iv["duration_s"], "band": band["label"],
+                   "duration_s": iv["duration_s"], "partial": iv["partial"],
+                   "overload": iv["overload"], "full_scale_samples": iv["full_scale_samples"],
+                   "band": band["label"],
                    "nominal_hz": band["nominal_hz"], "exact_hz": band["exact_hz"]}
             row.update({k: v for k, v in band.items()
                         if k not in ("label", "nominal_hz", "exact_hz")})

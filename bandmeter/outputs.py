@@ -7,6 +7,7 @@ previous file intact, and an existing file is only replaced when ``force`` is gi
 from __future__ import annotations
 
 import contextlib
+import errno
 import json
 import os
 import tempfile
@@ -33,7 +34,8 @@ def check_writable(path: str | os.PathLike[str], force: bool) -> None:
     if not os.path.isdir(folder):
         raise OutputError(f"{spath}: folder {folder} does not exist")
     if not os.access(folder, os.W_OK):
-        raise OutputError(f"{spath}: folder {folder} is not writable")
+        raise OutputError(f"{spath}: folder {folder} is not writable; choose an output folder "
+                          "you can write to")
 
 
 @contextlib.contextmanager
@@ -69,7 +71,7 @@ def atomic_open(
         fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(spath)}.", suffix=".part",
                                    dir=folder)
     except OSError as exc:
-        raise OutputError(f"{spath}: cannot create a file in {folder} ({exc.strerror})") from exc
+        raise OutputError(_failure(spath, exc, f"cannot create a file in {folder}")) from exc
     try:
         kwargs = {} if "b" in mode else {"encoding": encoding, "newline": ""}
         with os.fdopen(fd, mode, **kwargs) as handle:
@@ -84,11 +86,22 @@ def atomic_open(
             os.unlink(tmp)
         if isinstance(exc, OutputError):
             raise
-        raise OutputError(f"{spath}: write failed ({exc.strerror or exc})") from exc
+        raise OutputError(_failure(spath, exc, "write failed")) from exc
     except BaseException:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         raise
+
+
+def _failure(path: str, exc: OSError, what: str) -> str:
+    """One line for a failed output: the path, the reason and what to do."""
+    if exc.errno == errno.ENOSPC:
+        return (f"{path}: no space left on device ({what}); free some space or write "
+                "elsewhere, then run again (no earlier file was changed)")
+    if exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
+        return (f"{path}: {what} ({exc.strerror}); choose an output folder you can write to "
+                "(no earlier file was changed)")
+    return f"{path}: {what} ({exc.strerror or exc})"
 
 
 def write_text(path: str | os.PathLike[str], text: str, force: bool = False) -> None:
