@@ -117,6 +117,9 @@ OCTAVE_NOMINAL_HZ = (125.0, 250.0, 500.0, 1000.0, 2000.0, 4000.0, 8000.0)
 #: Frequency deviation from nominal above which a warning is given, % (IEC 60942:2003 Table 3,
 #: class 1 frequency tolerance, REFERENCE_VALUES.md 6, confirmed).
 FREQUENCY_TOLERANCE_PERCENT = 1.0
+#: A tone further than this from the nominal frequency the user gave is refused, %: no
+#: calibrator is that far off, it is another one or another file (common practice, no source).
+WRONG_TONE_PERCENT = 10.0
 
 #: Standard deviation of the 1 s tone levels above which the tone is called unsteady, dB
 #: (common practice, no source).
@@ -1155,7 +1158,8 @@ def measure_tone(
     ------
     CalibrationError
         File too short, no tone, two comparable tones, tone outside 100 Hz..10 kHz, no steady
-        span, span outside the file.
+        span, span outside the file, samples at full scale in the span measured (overload),
+        a tone more than :data:`WRONG_TONE_PERCENT` off the nominal frequency given.
     SettingsError
         Malformed span or nominal frequency.
     """
@@ -1239,6 +1243,16 @@ def _tone_result(
     nominal_hz = nearest_nominal_frequency(frequency) if nominal is None else nominal
     deviation = 100.0 * (frequency - nominal_hz) / nominal_hz
     span = (start / fs, result.stop / fs)
+    if result.clipped:
+        raise CalibrationError(
+            f"{where}: {result.clipped} samples at or beyond full scale in the span measured "
+            f"({span[0]:.2f}..{span[1]:.2f} s): the recorder overloads, so the tone's level "
+            "would be wrong; lower the input gain and record the tone again")
+    if nominal is not None and abs(deviation) > WRONG_TONE_PERCENT:
+        raise CalibrationError(
+            f"{where}: the tone is at {frequency:.1f} Hz, {deviation:+.0f} % off the nominal "
+            f"{nominal_hz:g} Hz given: another calibrator or the wrong file; give the "
+            "calibrator's own nominal frequency, or the right file")
     warnings = _tone_warnings(frequency, nominal_hz, deviation, stability, snr, thdn,
                               result.clipped, clipped_file, span)
     return ToneMeasurement(

@@ -496,20 +496,35 @@ def test_warning_instability(tmp_path):
     assert any("unsteady" in w for w in tone.warnings)
 
 
-def test_warning_clipping(tmp_path):
-    x = np.clip(sine(1000.0, 3.0, dbfs=2.0), -1.0, 1.0)  # driven 2 dB past full scale
-    cal = calibrate(write(tmp_path, "clip.wav", x, subtype="PCM_16"), 94.0)
-    assert any("at or beyond full scale in the span" in w for w in cal.warnings)
-    assert any("THD+N" in w for w in cal.warnings)
+def test_clipped_tone_is_refused(tmp_path):
+    # driven 2 dB past full scale: clipping lowers the fundamental, so the calibration would
+    # be about 1 dB off; refused, with the count of clipped samples in the span
+    x = np.clip(sine(1000.0, 3.0, dbfs=2.0), -1.0, 1.0)
+    path = write(tmp_path, "clip.wav", x, subtype="PCM_16")
+    with pytest.raises(CalibrationError, match="at or beyond full scale in the span") as err:
+        calibrate(path, 94.0)
+    count = int(str(err.value).split(": ")[1].split()[0])
+    assert count > 0.3 * x.size  # most of a sine 2 dB over full scale is clipped
 
 
 def test_clipped_counts_are_exact(tmp_path):
-    x = np.clip(sine(1000.0, 4.0, dbfs=1.0), -1.0, 1.0)
+    # clipped only before the span measured (seating the calibrator): measured, counted
+    x = sine(1000.0, 4.0, dbfs=-6.0)
+    x[: FS // 2] = np.clip(4.0 * x[: FS // 2], -1.0, 1.0)
     tone = measure(write(tmp_path, "clip.wav", x, subtype="FLOAT"), span_s=(0.7, 3.2))
     a, b = round(tone.span_s[0] * FS), round(tone.span_s[1] * FS)
     # independent count on the synthesised samples (float: full scale at 1.0)
-    assert tone.clipped_samples == np.count_nonzero(np.abs(x[a:b]) >= 1.0)
-    assert tone.clipped_samples_file == np.count_nonzero(np.abs(x) >= 1.0)
+    assert tone.clipped_samples == np.count_nonzero(np.abs(x[a:b]) >= 1.0) == 0
+    assert tone.clipped_samples_file == np.count_nonzero(np.abs(x) >= 1.0) > 0
+    assert any("elsewhere in the file" in w for w in tone.warnings)
+
+
+def test_tone_far_from_the_nominal_given_is_refused(tmp_path):
+    path = write(tmp_path, "t250.wav", sine(250.0, 3.0, dbfs=-20.0))
+    with pytest.raises(CalibrationError, match="-75 % off the nominal 1000 Hz"):
+        calibrate(path, 94.0, nominal_frequency_hz=1000.0)
+    assert calibrate(path, 94.0, nominal_frequency_hz=250.0).frequency_hz == pytest.approx(
+        250.0, abs=0.01)
 
 
 def test_warning_low_snr(tmp_path):

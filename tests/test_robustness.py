@@ -112,16 +112,9 @@ def _invoke(command, path):
     return run(command[0], path, *command[1:])
 
 
-_CLICK_READABLE = pytest.mark.xfail(
-    strict=True, reason="click.Path(readable=True) in commands/info.py and calibrate.py "
-    "answers first with a usage error (exit 2, four lines)")
-
-
 @pytest.mark.skipif(hasattr(os, "geteuid") and os.geteuid() == 0,
                     reason="root reads files whatever their permissions")
-@pytest.mark.parametrize("command", [pytest.param(COMMANDS[0], marks=_CLICK_READABLE),
-                                     COMMANDS[1],
-                                     pytest.param(COMMANDS[2], marks=_CLICK_READABLE)])
+@pytest.mark.parametrize("command", COMMANDS)
 def test_permission_denied(tmp_path, site, command):
     site.chmod(0)
     try:
@@ -252,18 +245,17 @@ def _clipped_tone(tmp_path):
     return path
 
 
-def test_clipped_tone_is_warned_with_the_fix(tmp_path):
-    path = _clipped_tone(tmp_path)
-    result = run("calibrate", path, "--level", "94")
-    assert "at or beyond full scale in the span measured" in result.stderr
-    assert "lower the input gain and record the tone again" in result.stderr
-
-
-@pytest.mark.xfail(strict=True, reason="defect in calibration.py (_tone_warnings): a tone "
-                   "clipped in the span measured gives a wrong calibration but only a warning")
 def test_clipped_tone_is_refused(tmp_path):
     path = _clipped_tone(tmp_path)
-    one_line_error(run("calibrate", path, "--level", "94"), str(path), "full scale")
+    one_line_error(run("calibrate", path, "--level", "94"), str(path), "full scale",
+                   "lower the input gain and record the tone again")
+
+
+def test_tone_at_another_calibrators_frequency_is_refused(tmp_path):
+    path = tmp_path / "t250.wav"
+    sf.write(path, sine(FS, 250.0, 4.0, 0.1), FS, subtype="PCM_24")
+    one_line_error(run("calibrate", path, "--level", "94", "--frequency", "1000"), str(path),
+                   "off the nominal 1000 Hz", "the calibrator's own nominal frequency")
 
 
 def test_malformed_calibration_files_through_levels(tmp_path, site):

@@ -43,7 +43,7 @@ def calibration_lines(cal: Calibration) -> str:
 
 
 @cli.command("calibrate")
-@click.argument("tone_file", type=click.Path(dir_okay=True))
+@click.argument("tone_file", type=click.Path(dir_okay=True, readable=False))
 @click.option("--level", "level_db", required=True, type=float,
               help="Calibrator level from its certificate, dB re 20 uPa (e.g. 94 or 114).")
 @channel_option
@@ -51,10 +51,10 @@ def calibration_lines(cal: Calibration) -> str:
               help="Part of TONE_FILE with the steady tone, s (default: found automatically).")
 @click.option("--frequency", "nominal_hz", type=float,
               help="Nominal calibrator frequency, Hz (default: nearest octave frequency).")
-@click.option("--after", "after_file", type=click.Path(dir_okay=True),
+@click.option("--after", "after_file", type=click.Path(dir_okay=True, readable=False),
               help="Post-survey recording of the same calibrator: reports the drift.")
 @click.option("--after-span", metavar="START:END", help="Part of --after with the tone, s.")
-@click.option("--save", "save_path", type=click.Path(dir_okay=False),
+@click.option("--save", "save_path", type=click.Path(readable=False),
               help="Write the calibration to this JSON file (atomic, see --force).")
 @click.option("--force", is_flag=True, help="Replace the --save file if it exists.")
 @click.option("--json", "as_json", is_flag=True, help="Print the calibration as JSON.")
@@ -73,6 +73,10 @@ def calibrate_command(
     With --after the post-survey tone gives the drift (post minus pre, dB); more than
     0.5 dB is warned about.
     """
+    if save_path is not None:
+        from ..outputs import check_writable
+
+        check_writable(save_path, force)  # before the measurement, not after
     cal = calibrate(tone_file, level_db, channel=channel, span_s=parse_span(span),
                     after_path=after_file, after_span_s=parse_span(after_span),
                     nominal_frequency_hz=nominal_hz)
@@ -106,8 +110,9 @@ def check_table(result: CalibratorCheck) -> str:
 
 
 @cli.command("check-calibrator")
-@click.argument("tone_file", type=click.Path(dir_okay=True))
-@click.option("--cal", "cal_path", required=True, type=click.Path(dir_okay=False),
+@click.argument("tone_file", type=click.Path(dir_okay=True, readable=False))
+@click.option("--cal", "cal_path", required=True,
+              type=click.Path(dir_okay=True, readable=False),
               help="Calibration of the chain (made with a reference calibrator).")
 @click.option("--nominal", "nominal_level", required=True, type=float,
               help="Stated level of the calibrator under check, dB re 20 uPa.")

@@ -74,7 +74,7 @@ def _batch_folder(folder: str, criteria: EventCriteria, step_s: float, b: int | 
 
 
 @cli.command("events")
-@click.argument("file", type=click.Path())
+@click.argument("file", type=click.Path(readable=False))
 @calibration_options
 @channel_option
 @click.option("--threshold", type=float, help="Absolute threshold, dB (default: relative).")
@@ -97,7 +97,7 @@ def _batch_folder(folder: str, criteria: EventCriteria, step_s: float, b: int | 
               help="CSV of time ranges (start,end[,label]) to exclude: levels with and without.")
 @click.option("--start", metavar="ISO8601", help="Clock time of the first sample.")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
-@click.option("--output", "-o", type=click.Path(dir_okay=False),
+@click.option("--output", "-o", type=click.Path(readable=False),
               help="Write the event table to this CSV file (atomic).")
 @click.option("--force", is_flag=True, help="Replace an existing output file.")
 def events_command(

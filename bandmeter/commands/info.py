@@ -17,7 +17,7 @@ def full_scale_count(path: str, channel: int) -> int:
 
 
 @cli.command("info")
-@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=True))
+@click.argument("files", nargs=-1, required=True, type=click.Path(dir_okay=True, readable=False))
 @click.option("--channel", "-c", default=1, show_default=True, type=int,
               help="Channel to scan for full-scale samples (1-based).")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON object per file list.")

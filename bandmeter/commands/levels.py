@@ -164,7 +164,7 @@ def render_tones(screening) -> str:
               help="With -o and --bands: one CSV row per interval x band instead of wide rows.")
 @click.option("--start", "start", metavar="ISO8601",
               help="Clock time of the first sample, e.g. 2026-05-14T22:00:00+01:00.")
-@click.option("--report", "report", type=click.Path(dir_okay=False), metavar="REPORT.html",
+@click.option("--report", "report", type=click.Path(readable=False), metavar="REPORT.html",
               help="Also write a self-contained HTML report of the result (atomic).")
 @output_options
 def levels_command(

@@ -42,9 +42,9 @@ def channel_option(func: F) -> F:
 def calibration_options(func: F) -> F:
     """The calibration option group: a calibration file, a tone on the fly, or a stated level."""
     options = [
-        click.option("--cal", "cal_path", type=click.Path(dir_okay=False),
+        click.option("--cal", "cal_path", type=click.Path(dir_okay=True, readable=False),
                      help="Calibration file made by `bandmeter calibrate --save`."),
-        click.option("--cal-tone", type=click.Path(dir_okay=False),
+        click.option("--cal-tone", type=click.Path(dir_okay=True, readable=False),
                      help="Calibrator recording to calibrate from on the fly (with --cal-level)."),
         click.option("--cal-level", type=float,
                      help="Level of the calibrator in --cal-tone, dB re 20 uPa (e.g. 94)."),
@@ -92,7 +92,7 @@ def output_options(func: F) -> F:
     """``--json``, ``-o/--output`` and ``--force``."""
     options = [
         click.option("--json", "as_json", is_flag=True, help="Print the result as JSON."),
-        click.option("--output", "-o", type=click.Path(dir_okay=False),
+        click.option("--output", "-o", type=click.Path(readable=False),
                      help="Write the table to this CSV file (atomic)."),
         click.option("--force", is_flag=True, help="Replace output files that exist."),
     ]

@@ -17,7 +17,7 @@ def _labels(text: str | None) -> list[str] | None:
 
 
 @cli.command("plot")
-@click.argument("result", type=click.Path())
+@click.argument("result", type=click.Path(readable=False))
 @click.option("--png-dir", type=click.Path(file_okay=False),
               help="Write PNG files (150 dpi) into this folder (created when missing).")
 @click.option("--svg-dir", type=click.Path(file_okay=False),

@@ -393,7 +393,7 @@ def to_json(source: str, kind: str, ratings: Sequence[tuple[_Survey, RatingResul
 @click.option("--by-file", is_flag=True,
               help="Batch folder: rate each measurement id separately.")
 @click.option("--json", "as_json", is_flag=True, help="Print the result as JSON.")
-@click.option("--output", "-o", type=click.Path(dir_okay=False),
+@click.option("--output", "-o", type=click.Path(readable=False),
               help="Write the per-day table to this CSV file (atomic).")
 @click.option("--force", is_flag=True, help="Replace an output file that exists.")
 def rating_command(

@@ -11,8 +11,8 @@ from ..report import report_path
 
 
 @cli.command("report")
-@click.argument("source", type=click.Path(exists=True))
-@click.option("--output", "-o", required=True, type=click.Path(dir_okay=False),
+@click.argument("source", type=click.Path(exists=True, readable=False))
+@click.option("--output", "-o", required=True, type=click.Path(readable=False),
               metavar="REPORT.html", help="The HTML file to write (atomic).")
 @click.option("--include", "include", multiple=True, type=click.Path(dir_okay=False),
               metavar="JSON",
