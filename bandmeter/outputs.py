@@ -12,9 +12,9 @@ import json
 import os
 import tempfile
 from collections.abc import Iterator
-from typing import IO
+from typing import IO, Any
 
-from .errors import OutputError
+from .errors import OutputError, SettingsError
 
 
 def check_writable(path: str | os.PathLike[str], force: bool) -> None:
@@ -132,3 +132,23 @@ def json_safe(obj: object) -> object:
 def json_text(obj: object, indent: int | None = 2) -> str:
     """Strict JSON text of ``obj`` (see :func:`json_safe`)."""
     return json.dumps(json_safe(obj), indent=indent, allow_nan=False)
+
+
+def read_json(path: str) -> Any:
+    """Read a JSON file that bandmeter (or the user) wrote: one-line errors.
+
+    Raises
+    ------
+    SettingsError
+        Missing, unreadable (a folder, no permission, not UTF-8) or not valid JSON.
+    """
+    try:
+        with open(path, encoding="utf-8") as handle:
+            return json.load(handle)
+    except FileNotFoundError:
+        raise SettingsError(f"{path}: no such file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SettingsError(f"{path}: cannot read the file ({exc})") from None
+    except json.JSONDecodeError as exc:
+        raise SettingsError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno})") \
+            from None

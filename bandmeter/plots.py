@@ -41,7 +41,6 @@ from __future__ import annotations
 
 import functools
 import io
-import json
 import math
 import os
 import re
@@ -59,7 +58,7 @@ from matplotlib.figure import Figure
 
 from . import plotstyle as style
 from .errors import OutputError, SettingsError
-from .outputs import check_writable, write_bytes
+from .outputs import check_writable, read_json, write_bytes
 
 __all__ = [
     "FIGURE_KINDS",
@@ -1064,19 +1063,6 @@ def save_figures(
 # --------------------------------------------------------------------------------------------
 
 
-def _read_json(path: str) -> Any:
-    try:
-        with open(path, encoding="utf-8") as handle:
-            return json.load(handle)
-    except FileNotFoundError:
-        raise SettingsError(f"{path}: no such file") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SettingsError(f"{path}: cannot read the file ({exc})") from None
-    except json.JSONDecodeError as exc:
-        raise SettingsError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno})") \
-            from None
-
-
 def _safe_stem(text: str) -> str:
     return "".join(c if c.isalnum() or c in "._-" else "_" for c in text) or "result"
 
@@ -1102,7 +1088,7 @@ def load_plot_input(path: str | os.PathLike[str]) -> list[tuple[str, Mapping[str
     spath = os.fspath(path)
     if os.path.isdir(spath):
         return _batch_inputs(spath)
-    data = _read_json(spath)
+    data = read_json(spath)
     if isinstance(data, Mapping) and data.get("format") == "bandmeter-calibration":
         from .calibration import Calibration
 
@@ -1143,7 +1129,7 @@ class _LazyResult(Mapping[str, Any]):
 
     def _load(self) -> Mapping[str, Any]:
         if self._data is None:
-            data = _read_json(self.path)
+            data = read_json(self.path)
             if not isinstance(data, Mapping) or not isinstance(data.get("intervals"), list):
                 raise SettingsError(f"{self.path}: not a level result")
             self._data = data
@@ -1172,7 +1158,7 @@ def read_events(path: str | os.PathLike[str]) -> list[Mapping[str, Any]]:
         Unreadable file or no events list.
     """
     spath = os.fspath(path)
-    data = _read_json(spath)
+    data = read_json(spath)
     events = data.get("events") if isinstance(data, Mapping) else data
     if not isinstance(events, list):
         raise SettingsError(f"{spath}: no events list (expected `bandmeter events --json` "

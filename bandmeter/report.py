@@ -38,7 +38,7 @@ from typing import Any
 from . import __version__
 from .errors import SettingsError
 from .manifest import settings_hash
-from .outputs import check_writable, json_safe, write_text
+from .outputs import check_writable, json_safe, read_json, write_text
 from .provenance import now_iso
 
 __all__ = [
@@ -172,7 +172,7 @@ def load_source(path: str | os.PathLike[str]) -> ReportSource:
         measurements, failed = [], []
         for entry in manifest.entries.values():
             if entry.get("status") == "ok" and entry.get("result_file"):
-                data = _read_json(os.path.join(spath, str(entry["result_file"])))
+                data = read_json(os.path.join(spath, str(entry["result_file"])))
                 if not isinstance(data, Mapping) or not isinstance(data.get("overall"),
                                                                    Mapping):
                     raise SettingsError(f"{entry['result_file']}: not a level result")
@@ -183,24 +183,12 @@ def load_source(path: str | os.PathLike[str]) -> ReportSource:
         if not measurements and not failed:
             raise SettingsError(f"{spath}: the batch holds no measurement")
         return ReportSource(spath, "batch", measurements, failed, manifest.settings)
-    data = _read_json(spath)
+    data = read_json(spath)
     if not (isinstance(data, Mapping) and isinstance(data.get("overall"), Mapping)
             and isinstance(data.get("intervals"), list)):
         raise SettingsError(f"{spath}: not a level result (`bandmeter levels FILE --json`) or "
                             "a batch output folder")
     return source_from_result(data, spath)
-
-
-def _read_json(path: str) -> Any:
-    try:
-        with open(path, encoding="utf-8") as handle:
-            return json.load(handle)
-    except FileNotFoundError:
-        raise SettingsError(f"{path}: no such file") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SettingsError(f"{path}: cannot read ({exc})") from None
-    except json.JSONDecodeError as exc:
-        raise SettingsError(f"{path}: not valid JSON ({exc.msg}, line {exc.lineno})") from None
 
 
 # --------------------------------------------------------------------------------------------
@@ -240,7 +228,7 @@ def load_includes(paths: Iterable[str | os.PathLike[str]]) -> list[Included]:
     out = []
     for path in paths:
         spath = os.fspath(path)
-        data = _read_json(spath)
+        data = read_json(spath)
         kind = _include_kind(data)
         if kind is None:
             raise SettingsError(f"{spath}: not an events, rating or exposure JSON output "
