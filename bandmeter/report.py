@@ -47,6 +47,7 @@ __all__ = [
     "Included",
     "ReportSource",
     "build_report",
+    "source_from_result",
     "load_includes",
     "load_source",
     "report_path",
@@ -80,9 +81,9 @@ h2 { font-size: 13pt; border-bottom: 1.5px solid #0072b2; padding-bottom: 1mm;
      margin-top: 8mm; }
 h3 { font-size: 11pt; margin: 5mm 0 2mm 0; }
 table { border-collapse: collapse; margin: 2mm 0 4mm 0; font-size: 8.5pt; }
-th, td { border: 0.6px solid #b0b0b0; padding: 1px 5px; text-align: right;
-         overflow-wrap: anywhere; }
-th { background: #eef3f8; }
+th, td { border: 0.6px solid #b0b0b0; padding: 1px 4px; text-align: right; }
+td { overflow-wrap: anywhere; }
+th { background: #eef3f8; font-size: 8pt; overflow-wrap: normal; }
 td.t, th.t { text-align: left; }
 tr.flag td { background: #fdf0e1; }
 .caution { border: 1.5px solid #d55e00; background: #fff7f0; padding: 2mm 3mm;
