@@ -65,8 +65,11 @@ Speed
         48 kHz, 3 per lower octave) instead of 31, so it cannot be more than about 4.4 times
         faster than one full-rate band-pass per band with the same kernel; sosfilt is
         latency-bound at about 6.5 ns per band-sample on the development machine.
-    Block state-space kernel (:class:`_BlockKernel`)
-        Takes the longer stage blocks and makes each band-sample cheaper instead. The bands of
+    Block state-space kernel (:class:`bandmeter.blockfilter._BlockKernel`)
+        Shared with the A and C weightings since it moved to :mod:`bandmeter.blockfilter`
+        (the bank uses it unchanged, with sosfilt's state layout and its own probe,
+        ``_probe_deviation``, and groups, ``_StagePlan``, here). It takes the longer stage
+        blocks and makes each band-sample cheaper instead. The bands of
         a stage (up to ``_GROUP_MAX`` = 8 at a time) are filtered together by matrix products.
         The stage input is cut into frames of 256 samples (128 for stage blocks shorter than
         16384 samples), each frame into sub-frames of 32. Per block: (1) the state input of
@@ -99,7 +102,9 @@ Speed
     93.5 x for the plain full-rate order-4 bank, 6.0 times faster (with sosfilt alone:
     359 x, 3.8 times); at 44.1 kHz 576 x against 104 x (5.5 times); at 96 kHz 433 x against
     48 x (9.1 times). Over other runs the 48 kHz ratio was 5.7 to 6.2. Blocks of 0.1 s leave
-    the stages too short for the block path to gain much (4.9 times at 48 kHz). Filter
+    the stages too short for the block path to gain much (4.9 times at 48 kHz); the level
+    engine therefore reads blocks of 2**17 samples (2.7 s at 48 kHz) by default, which keeps
+    every stage down to 750 Hz on the block path. Filter
     states below 1e-200 are flushed after each block, and the frame states of the block
     path within a block, so that digital silence does not leave them in slow subnormal
     arithmetic.
@@ -116,9 +121,21 @@ from collections.abc import Sequence
 
 import numpy as np
 from scipy import integrate, optimize, signal
-from scipy.linalg import blas
 
 from bandmeter.bands import Band, G, band_set
+from bandmeter.blockfilter import (  # noqa: F401 - re-exported: the bank's kernel and its knobs
+    _BLOCK_FRAME,
+    _BLOCK_SUB,
+    _BLOCK_TOL,
+    _OUT_COLS,
+    _WORK_BYTES,
+    _BlockKernel,
+    _frame_matrices,
+    _FrameLevel,
+    _probe_deviation,
+    _state_space,
+    matmul_rows,
+)
 from bandmeter.errors import SettingsError
 from bandmeter.numerics import flush_tiny
 
@@ -366,347 +383,13 @@ class _SosState:
 
 
 # --------------------------------------------------------------------------------------------
-# Block state-space kernel (the fast path of the band filters)
+# Block state-space kernel (the fast path of the band filters; bandmeter.blockfilter)
 
-#: Block path: samples per frame of the frame-to-frame state recurrence.
-_BLOCK_FRAME: int = 256
-#: Block path: samples per sub-frame (the states are filled in and the outputs computed per
-#: sub-frame); a multiple of ``_OUT_COLS``.
-_BLOCK_SUB: int = 32
-#: Output samples per matrix product of the block path (columns of a sub-frame).
-_OUT_COLS: int = 8
 #: A stage's bands take the block path for blocks of at least this many samples at its rate.
 _BLOCK_MIN_SAMPLES: int = 2048
-#: The block path fills in states and computes outputs in pieces of whole frames whose work
-#: array holds at most about this many bytes (bounds its memory and cache footprint).
-_WORK_BYTES: int = 1 << 20
 #: At most this many bands of one stage are filtered together (bounds the work array).
 _GROUP_MAX: int = 8
-#: Acceptance of a band for the block path: largest deviation from ``scipy.signal.sosfilt``
-#: on the first-use probe, relative to the largest reference output (or state) magnitude.
-_BLOCK_TOL: float = 1e-11
 
-
-def _state_space(sos: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
-    """State-space form ``s' = A s + B x``, ``y = C s + D x`` of a cascade run by sosfilt.
-
-    The state vector is the sosfilt state ``zi`` (shape ``(sections, 2)``) with the sections
-    in reverse order, ``s = zi[::-1].ravel()``: a section depends on the sections before it,
-    so ``A`` is zero below its first sub-diagonal (exactly, and so is every power of it).
-
-    Returns
-    -------
-    A : ndarray, shape (n, n)
-    B, C : ndarray, shape (n,)
-    D : float
-    """
-    n = 2 * sos.shape[0]
-    sig = np.zeros(n + 1)  # linear form of the current signal over [s, x]
-    sig[n] = 1.0
-    rows = np.zeros((n, n + 1))
-    for j, (b0, b1, b2, _, a1, a2) in enumerate(sos):
-        i0 = n - 2 - 2 * j  # position of zi[j, 0] in s
-        y = b0 * sig
-        y[i0] += 1.0
-        rows[i0] = b1 * sig - a1 * y
-        rows[i0, i0 + 1] += 1.0
-        rows[i0 + 1] = b2 * sig - a2 * y
-        sig = y
-    return rows[:, :n], rows[:, n], sig[:n], float(sig[n])
-
-
-def _frame_matrices(
-    ss: tuple[np.ndarray, np.ndarray, np.ndarray, float], length: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Matrices of one frame of ``length`` samples of the system ``ss = (A, B, C, D)``.
-
-    For a frame ``x`` (``length`` samples) entered with state ``s``: the state after it is
-    ``M s + gamma x`` and the output is ``obs s + toeplitz x``.
-
-    Returns
-    -------
-    M : ndarray, shape (n, n)
-        ``A**length``.
-    gamma : ndarray, shape (n, length)
-        Columns ``A**(length-1-i) B``.
-    obs : ndarray, shape (length, n)
-        Rows ``C A**r``.
-    toeplitz : ndarray, shape (length, length)
-        Lower triangular, ``toeplitz[r, i] = h[r - i]`` with the impulse response ``h``.
-    """
-    a, b, c, d = ss
-    n = a.shape[0]
-    obs = np.empty((length, n))
-    gamma = np.empty((n, length))
-    taps = np.empty(length)
-    taps[0] = d
-    row, col = c.copy(), b.copy()
-    for r in range(length):
-        obs[r] = row
-        gamma[:, length - 1 - r] = col
-        if r + 1 < length:
-            taps[r + 1] = row @ b
-        row, col = row @ a, a @ col
-    lag = np.subtract.outer(np.arange(length), np.arange(length))
-    toeplitz = np.where(lag >= 0, taps[np.maximum(lag, 0)], 0.0)
-    return np.linalg.matrix_power(a, length), gamma, obs, toeplitz
-
-
-class _FrameLevel:
-    """Frame-to-frame recurrence of a :class:`_BlockKernel` for one frame length.
-
-    Parameters
-    ----------
-    step : ndarray, shape (bands, n + sub, n)
-        The kernel's sub-frame step ``[s, x] @ step = next state`` (rows: ``M_sub.T`` above
-        ``gamma_sub.T``).
-    subs : int
-        Sub-frames per frame.
-    """
-
-    def __init__(self, step: np.ndarray, subs: int) -> None:
-        _, rows, n = step.shape
-        m_sub = step[:, :n, :].transpose(0, 2, 1)  # (bands, n, n)
-        g_sub = step[:, n:, :].transpose(0, 2, 1)  # (bands, n, sub)
-        # over a frame of ``subs`` sub-frames: state input [M**(subs-1) g, ..., M g, g]
-        parts = [g_sub]
-        for _ in range(subs - 1):
-            parts.insert(0, np.matmul(m_sub, parts[0]))
-        gamma = np.concatenate(parts, axis=2)  # (bands, n, frame)
-        self.frame = subs * (rows - n)
-        self.gain = np.stack([np.linalg.matrix_power(m, subs) for m in m_sub])  # A**frame
-        self.drive = np.ascontiguousarray(gamma.transpose(2, 0, 1).reshape(self.frame, -1))
-        self.pattern = self._band_pattern()
-        self._band: tuple[int, np.ndarray] | None = None
-
-    def _band_pattern(self) -> np.ndarray:
-        """One frame's columns of the band storage of ``-A**frame`` (``dtbsv``, lower)."""
-        nb, n, _ = self.gain.shape
-        pat = np.zeros((nb, n + 2, n))
-        for c in range(n):  # row (state after the next frame)
-            for cp in range(n):  # column (state after this frame)
-                d = n + c - cp
-                if 1 <= d <= n + 1:
-                    pat[:, d, cp] = -self.gain[:, c, cp]
-                elif np.any(self.gain[:, c, cp] != 0.0):  # pragma: no cover - structural
-                    raise AssertionError("frame transition matrix is not upper Hessenberg")
-        return pat
-
-    def _band_matrix(self, frames: int) -> np.ndarray:
-        """Band storage (Fortran order) of the stacked recurrence, cached per frame count."""
-        if self._band is None or self._band[0] != frames:
-            n = self.gain.shape[1]
-            seg = np.tile(self.pattern, (1, 1, frames))  # (bands, n+2, n*frames)
-            seg[:, :, -n:] = 0.0  # the last frame of a band does not feed the next band
-            full = seg.transpose(1, 0, 2).reshape(n + 2, -1)
-            self._band = (frames, np.asfortranarray(full))
-        return self._band[1]
-
-    def states(self, frames_x: np.ndarray, state: np.ndarray) -> np.ndarray:
-        """States after each frame of ``frames_x`` (shape (frames, frame)) entered with
-        ``state`` (bands, n); shape (bands, frames, n), tiny values flushed."""
-        nb, n, _ = self.gain.shape
-        frames = frames_x.shape[0]
-        drive = (frames_x @ self.drive).reshape(frames, nb, n).transpose(1, 0, 2).copy()
-        drive[:, 0, :] += np.matmul(self.gain, state[:, :, None])[:, :, 0]
-        tops = blas.dtbsv(
-            n + 1, self._band_matrix(frames), drive.reshape(-1), lower=1, diag=1, overwrite_x=1
-        )
-        return flush_tiny(tops.reshape(nb, frames, n))
-
-
-class _BlockKernel:
-    """Block state-space filtering of band filters that share one input signal.
-
-    The input is cut into frames (``_BLOCK_FRAME`` samples for long blocks, half that for
-    shorter ones, see :meth:`frame_for`) and each frame into sub-frames of ``sub`` samples.
-    Per block: (1) the state input of every frame, ``Gamma x_frame``, for all frames and bands
-    in one matrix product; (2) the frame-to-frame recurrence ``s_{k+1} = A**frame s_k +
-    Gamma x_k``, solved for all frames and bands by one banded triangular solve (BLAS
-    ``dtbsv``: the recurrence is a lower-triangular band system in the stacked states);
-    (3) the states at the sub-frame starts, one sub-frame step at a time but for all frames
-    and bands at once; (4) the outputs of every sub-frame, ``y = obs s + toeplitz x``, as
-    matrix products of ``[s, x]`` with the stacked matrices, in chunks of ``_OUT_COLS``
-    columns (so that the zero upper triangle of ``toeplitz`` is mostly skipped). The tail of a
-    block shorter than a frame is handled by zero padding (outputs past the end are
-    discarded); the state at the true end of the block is computed from the last sub-frame
-    start. The states are those of sosfilt's layout (reversed section order), so the bank
-    can switch between this path and sosfilt at any block.
-
-    Parameters
-    ----------
-    soss : sequence of ndarray
-        Second-order sections of each band (same number of sections each).
-    sub : int, optional
-        Sub-frame length, samples (a multiple of ``_OUT_COLS`` dividing the frame lengths).
-    scratch : dict, optional
-        Scratch memory, shared by the kernels of one bank (they run one after another): a
-        bank's block path then keeps one set of work arrays, which stays in the CPU caches.
-    """
-
-    def __init__(
-        self,
-        soss: Sequence[np.ndarray],
-        sub: int = _BLOCK_SUB,
-        scratch: dict[str, np.ndarray] | None = None,
-    ) -> None:
-        if sub % _OUT_COLS or (_BLOCK_FRAME // 2) % sub:
-            raise ValueError(f"bad sub-frame length {sub}")
-        self.sub, self.n_bands = sub, len(soss)
-        self._scratch = {} if scratch is None else scratch
-        self._systems = [_state_space(np.asarray(s, dtype=np.float64)) for s in soss]
-        self.n_states = n = self._systems[0][0].shape[0]
-        part = [_frame_matrices(ss, sub) for ss in self._systems]
-        # [s, x] @ step = next state; [s, x] @ out_w[c] = output columns of chunk c
-        self.step = np.ascontiguousarray(np.stack([np.vstack([p[0].T, p[1].T]) for p in part]))
-        wide = np.stack([np.vstack([p[2].T, p[3].T]) for p in part])  # (bands, n+sub, sub)
-        self.cols = _OUT_COLS
-        self.out_w = [
-            np.ascontiguousarray(wide[:, : n + c + self.cols, c : c + self.cols])
-            for c in range(0, sub, self.cols)
-        ]
-        self.final = self._final_matrices([p[1] for p in part])
-        self._levels: dict[int, _FrameLevel] = {}
-
-    def _final_matrices(self, gammas: list[np.ndarray]) -> list[np.ndarray]:
-        """Matrices ``W[r]`` with ``[s, x[:r]] @ W[r]`` = the state ``r`` samples into a
-        sub-frame entered with state ``s``, shape (bands, n+r, n); ``W[0]`` is unused."""
-        n = self.n_states
-        power = np.broadcast_to(np.eye(n), (self.n_bands, n, n))
-        a = np.stack([ss[0] for ss in self._systems])
-        g = np.stack(gammas)  # (bands, n, sub): columns A**(sub-1-i) B
-        final = [np.empty((self.n_bands, n, n))]
-        for r in range(1, self.sub):
-            power = np.matmul(a, power)
-            tail = g[:, :, self.sub - r :]  # A**(r-1-i) B, i < r
-            w = np.concatenate([power.transpose(0, 2, 1), tail.transpose(0, 2, 1)], axis=1)
-            final.append(np.ascontiguousarray(w))
-        return final
-
-    def level(self, frame: int) -> _FrameLevel:
-        """Frame-to-frame recurrence for frames of ``frame`` samples (built on first use)."""
-        if frame not in self._levels:
-            self._levels[frame] = _FrameLevel(self.step, frame // self.sub)
-        return self._levels[frame]
-
-    @staticmethod
-    def frame_for(length: int) -> int:
-        """Frame length used for a block of ``length`` samples: long frames for long blocks
-        (a cheaper recurrence), short ones for short blocks (fewer sub-frame steps)."""
-        return _BLOCK_FRAME if length >= 64 * _BLOCK_FRAME else _BLOCK_FRAME // 2
-
-    def padded_length(self, length: int) -> int:
-        """Output row length needed for a block of ``length`` samples (whole frames)."""
-        frame = self.frame_for(length)
-        return -(-length // frame) * frame
-
-    def process(
-        self, x: np.ndarray, state: np.ndarray, out: np.ndarray, frame: int | None = None
-    ) -> None:
-        """Filter one block.
-
-        Parameters
-        ----------
-        x : ndarray, shape (length,)
-            Input, any length >= 1, input units.
-        state : ndarray, shape (bands, n)
-            States at the start of the block (kernel order), replaced by those at its end.
-        out : ndarray, shape (bands, >= padded length)
-            Receives the outputs in ``out[:, :length]`` (the rest is scratch).
-        frame : int, optional
-            Frame length, samples (default :meth:`frame_for`).
-        """
-        n, sub = self.n_states, self.sub
-        frame = self.frame_for(x.size) if frame is None else frame
-        frames = -(-x.size // frame)
-        padded = self._buffer("pad", (frames * frame,))
-        padded[: x.size] = x
-        padded[x.size :] = 0.0
-        tops = self.level(frame).states(padded.reshape(frames, frame), state)
-        starts = np.concatenate([state[:, None, :], tops[:, :-1]], axis=1)
-        dest = out[:, : frames * frame].reshape(self.n_bands, frames, frame)
-        per_chunk = max(1, _WORK_BYTES // (8 * self.n_bands * (frame + frame // sub * n)))
-        q, r = divmod(x.size, sub)
-        state[...] = tops[:, -1]
-        for f0 in range(0, frames, per_chunk):
-            f1 = min(frames, f0 + per_chunk)
-            piece = padded[f0 * frame : f1 * frame]
-            rows = self._subframes(piece, starts[:, f0:f1], dest[:, f0:f1])
-            first = f0 * frame // sub
-            if first <= q < first + rows.shape[1]:
-                row = rows[:, q - first]
-                if r == 0:
-                    state[...] = row[:, :n]
-                else:
-                    state[...] = np.matmul(row[:, None, : n + r], self.final[r])[:, 0, :]
-
-    def _subframes(self, x: np.ndarray, starts: np.ndarray, dest: np.ndarray) -> np.ndarray:
-        """States and outputs of the sub-frames of whole frames ``x`` entered with ``starts``.
-
-        Parameters
-        ----------
-        x : ndarray, shape (frames * frame,)
-            Input of whole frames.
-        starts : ndarray, shape (bands, frames, n)
-            State at the start of each frame.
-        dest : ndarray, shape (bands, frames, frame)
-            Receives the outputs.
-
-        Returns
-        -------
-        ndarray, shape (bands, frames * subs, n + sub)
-            Rows ``[s, x]`` of every sub-frame (scratch memory: valid until the next call).
-        """
-        nb, n, sub = self.n_bands, self.n_states, self.sub
-        frames, frame = dest.shape[1], dest.shape[2]
-        subs = frame // sub
-        work = self._buffer("work", (nb, frames, subs, n + sub))
-        work[:, :, :, n:] = x.reshape(frames, subs, sub)
-        work[:, :, 0, :n] = starts
-        for i in range(subs - 1):
-            np.matmul(work[:, :, i, :], self.step, out=work[:, :, i + 1, :n])
-        rows = work.reshape(nb, frames * subs, n + sub)
-        y = dest.reshape(nb, frames * subs, sub)
-        for k, w in enumerate(self.out_w):
-            c = k * self.cols
-            np.matmul(rows[:, :, : w.shape[1]], w, out=y[:, :, c : c + self.cols])
-        return rows
-
-    def _buffer(self, name: str, shape: tuple[int, ...]) -> np.ndarray:
-        """Scratch array of ``shape`` in the scratch memory ``name`` (shared, see ``scratch``)."""
-        size = math.prod(shape)
-        if self._scratch.get(name, np.empty(0)).size < size:
-            self._scratch[name] = np.empty(size)
-        return self._scratch[name][:size].reshape(shape)
-
-
-def _probe_deviation(kernel: _BlockKernel, soss: Sequence[np.ndarray]) -> np.ndarray:
-    """Largest relative deviation of ``kernel`` from ``scipy.signal.sosfilt``, per band.
-
-    For each frame length the kernel uses, a seeded noise probe (two frames, a sub-frame and
-    3 samples, so that every part of the block path runs) is filtered from the state left by
-    300 samples of noise; the output deviation is taken relative to the largest reference
-    output, the final-state deviation relative to the largest reference state component.
-    """
-    rng = np.random.default_rng(61260)
-    warm = rng.standard_normal(300)
-    dev = np.zeros(len(soss))
-    for frame in (_BLOCK_FRAME // 2, _BLOCK_FRAME):
-        x = rng.standard_normal(2 * frame + kernel.sub + 3)
-        state = np.empty((len(soss), kernel.n_states))
-        refs = []
-        for j, sos in enumerate(soss):
-            _, z0 = signal.sosfilt(sos, warm, zi=np.zeros((sos.shape[0], 2)))
-            y_ref, z_ref = signal.sosfilt(sos, x, zi=z0)
-            state[j] = z0[::-1].ravel()
-            refs.append((y_ref, z_ref[::-1].ravel()))
-        out = np.empty((len(soss), 3 * frame))
-        kernel.process(x, state, out, frame=frame)
-        for j, (y_ref, z_ref) in enumerate(refs):
-            dy = np.max(np.abs(out[j, : x.size] - y_ref)) / np.max(np.abs(y_ref))
-            dz = np.max(np.abs(state[j] - z_ref)) / np.max(np.abs(z_ref))
-            dev[j] = max(dev[j], dy, dz) if np.isfinite(dy + dz) else math.inf
-    return dev
 
 
 class _StagePlan:
@@ -828,7 +511,7 @@ class _HalfbandDecimator:
             offset=par * step,
             strides=(2 * chunk * step, 2 * step),
         )
-        y = (frame @ self._T).reshape(-1)[:m]
+        y = matmul_rows(frame, self._T).reshape(-1)[:m]  # single-threaded pieces
         centre = nh // 2 + par
         y += self._CENTRE * ext[centre : centre + 2 * m : 2]
         return y

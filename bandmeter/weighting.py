@@ -123,10 +123,10 @@ import math
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import optimize, signal
+from scipy import optimize
 
+from .blockfilter import SosFilter
 from .errors import SettingsError
-from .numerics import flush_tiny
 
 #: Frequency weightings offered (IEC 61672-1:2013).
 WEIGHTINGS = ("A", "C", "Z")
@@ -613,8 +613,16 @@ class WeightingFilter:
     -----
     The filter starts at rest (zero state, like an analogue filter switched on in silence);
     :meth:`reset` returns to that state. The state carries across :meth:`process` calls, so
-    any split of a signal into blocks gives the same output as one pass. A NaN or infinite
-    sample contaminates the state until :meth:`reset`.
+    any split of a signal into blocks gives the same output as one pass (to rounding, about
+    1e-15 of the signal). A NaN or infinite sample contaminates the state until :meth:`reset`.
+
+    The sections run on the block state-space kernel of :mod:`bandmeter.blockfilter`
+    (:class:`~bandmeter.blockfilter.SosFilter`), in a realisation that keeps the
+    low-frequency sections (zeros at DC, poles near z = 1) well conditioned: about twice as
+    fast as ``scipy.signal.sosfilt`` on long blocks and as accurate or more (within 2e-12
+    of the output maximum of sosfilt at 44.1 and 48 kHz, 4e-11 at 192 kHz where sosfilt's
+    own error dominates; ``tests/test_blockfilter.py``). It is checked against sosfilt on
+    first use and falls back to it on any deviation beyond 1e-11 of a probe's output.
 
     Z weighting does no arithmetic: :meth:`process` returns a new float64 array equal to the
     input (a copy, never the caller's array), like A and C.
@@ -634,11 +642,11 @@ class WeightingFilter:
         self.weighting = _weighting_letter(weighting)
         self.fs = _check_fs(fs)
         self.sos = design_sos(self.weighting, self.fs)
-        self._zi = np.zeros((self.sos.shape[0], 2))
+        self._filter = SosFilter(self.sos)
 
     def reset(self) -> None:
         """Return the filter to rest (zero state)."""
-        self._zi = np.zeros((self.sos.shape[0], 2))
+        self._filter.reset()
 
     def process(self, block: ArrayLike) -> np.ndarray:
         """Weight one block of samples.
@@ -655,11 +663,9 @@ class WeightingFilter:
         """
         if np.iscomplexobj(block):
             raise TypeError("the weighting filter takes a real signal, got complex samples")
-        x = np.array(block, dtype=np.float64)
+        x = np.asarray(block, dtype=np.float64)
         if x.ndim != 1:
             raise SettingsError(f"expected a 1-D block (one channel), got shape {x.shape!r}")
         if self.weighting == "Z" or x.size == 0:
-            return x
-        y, zi = signal.sosfilt(self.sos, x, zi=self._zi)
-        self._zi = flush_tiny(zi)  # keep the state out of slow subnormal numbers
-        return y
+            return x.copy()
+        return self._filter.process(x)  # a new array; the state is flushed of tiny values

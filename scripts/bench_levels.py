@@ -9,8 +9,9 @@ In one run, for a synthetic 48 kHz 24-bit recording (pink noise with passing eve
 into a temporary folder, it times, excluding interpreter start-up and imports:
 
 - decode-only: reading every block of the file (the floor any analysis pays);
-- bandmeter: ``analyse_file`` with 1 s intervals (A/C/Z Leq, F/S/I, true C and Z peaks,
-  percentiles; plus one-third-octave bands 20 Hz - 20 kHz with ``--bands``);
+- bandmeter: ``analyse_file`` with 1 s intervals and otherwise default settings (A/C/Z Leq,
+  F/S/I, true C and Z peaks, percentiles; plus one-third-octave bands 20 Hz - 20 kHz with
+  ``--bands``);
 - plain scipy: what a user would script for the same broadband metrics: bilinear A and C
   filters (scipy.signal.bilinear_zpk of the analog IEC 61672-1 poles), sosfilt with zi per
   block, lfilter exponentials for F and S, per-second means, maxima, minima, np.percentile
@@ -19,7 +20,9 @@ into a temporary folder, it times, excluding interpreter start-up and imports:
   bandmeter's band filters).
 
 and reports real-time factors, the ratios, and the peak memory (RSS) of each analysis, each
-run in a fresh child process so the figures do not mix.
+run in a fresh child process so the figures do not mix. ``scripts/bench.py`` is the full
+benchmark of the issue (both lengths, one core, interleaved rounds, a plain-scipy script of
+the whole analysis including true peaks).
 """
 
 from __future__ import annotations
@@ -76,8 +79,7 @@ def run_bandmeter(path: str, bands: bool) -> float:
     from bandmeter.calibration import from_full_scale_level
     from bandmeter.engine import AnalysisSettings, analyse_file
 
-    settings = AnalysisSettings(interval_s=1.0, bands=3 if bands else None,
-                                block_frames=BLOCK)
+    settings = AnalysisSettings(interval_s=1.0, bands=3 if bands else None)  # default blocks
     cal = from_full_scale_level(120.0)
     t0 = time.perf_counter()
     analyse_file(path, cal, settings)
@@ -142,7 +144,9 @@ def child(kind: str, path: str, bands: bool) -> None:
 
 def measure(kind: str, path: str, bands: bool) -> dict[str, float]:
     cmd = [sys.executable, __file__, "--child", kind, path] + (["--bands"] if bands else [])
-    out = subprocess.run(cmd, check=True, capture_output=True, text=True).stdout
+    one_core = {k: "1" for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
+    out = subprocess.run(cmd, check=True, capture_output=True, text=True,
+                         env={**os.environ, **one_core}).stdout
     return json.loads(out.strip().splitlines()[-1])
 
 

@@ -420,3 +420,82 @@ def test_tone_cut_mid_cycle_reads_no_edge_overshoot(frequency_hz: float, phase_r
     assert abs(db(got)) <= ACCURACY_DB
     got_reversed = meter_peaks(x[::-1], plan)[0]  # ends with the jump
     assert abs(db(got_reversed)) <= ACCURACY_DB
+
+
+# ------------------------------------------------ tile pre-test and exactness of the pruning
+
+
+def _adversarial(kind: str, n: int = 9000) -> np.ndarray:
+    """Signals that stress the pruning: content at and near Nyquist, ties, clipping."""
+    rng = np.random.default_rng(len(kind))
+    t = np.arange(n)
+    if kind == "near_nyquist_bursts":  # isolated 24-sample bursts at 0.98 x Nyquist
+        x = 1e-3 * rng.standard_normal(n)
+        for start in rng.integers(100, n - 100, 8):
+            x[start : start + 24] += rng.uniform(0.2, 1.0) * np.cos(0.98 * np.pi * t[:24] + 0.4)
+        return x
+    if kind == "fs4_sine_phase":  # every crest between samples: samples at 0.707 of it
+        return np.sin(0.5 * np.pi * t + np.pi / 4)
+    if kind == "clipped_square":  # a square wave clipped at full scale, steep edges
+        return np.clip(1.3 * np.sign(np.sin(2 * np.pi * 1000 * t / FS + 0.1)), -1.0, 1.0)
+    if kind == "quiet_then_loud":  # most tiles far below the interval's peak
+        x = 1e-4 * rng.standard_normal(n)
+        x[n // 2 : n // 2 + 50] += np.hanning(50) * np.sin(2 * np.pi * 9000 * t[:50] / FS)
+        return x
+    return rng.standard_normal(n)  # white noise up to Nyquist: most tiles fail the tile test
+
+
+ADVERSARIAL = ["near_nyquist_bursts", "fs4_sine_phase", "clipped_square", "quiet_then_loud",
+               "white"]
+
+
+@pytest.mark.parametrize("kind", ADVERSARIAL)
+def test_tile_pretest_gives_identical_peaks(kind: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    # the tile pre-test (a tile whose samples and neighbours are below the per-sample
+    # threshold has no candidate) selects exactly the candidates of the per-sample test:
+    # the same peaks, to the last bit, with the pre-test taken always, never, or as chosen
+    from bandmeter import peak
+
+    x = _adversarial(kind)
+    results = []
+    for sparse in (0, peak._SPARSE_TILES, 10**9):  # 0: never dense; 10**9: always dense
+        monkeypatch.setattr(peak, "_SPARSE_TILES", sparse)
+        for plan in (IntervalPlan(None), IntervalPlan(700), IntervalPlan(1000, 13)):
+            results.append(meter_peaks(x, plan, blocks=[3001, 3002], frame_samples=2048))
+    n_plans = 3
+    for i in range(n_plans, len(results)):
+        assert results[i] == results[i % n_plans], (kind, i)
+
+
+def _refined_everywhere(x: np.ndarray, plan: IntervalPlan) -> np.ndarray:
+    """Peak per interval with the meter's own evaluation (16-step grid and parabolic
+    refinement, bandmeter.peak._refine) at every sample, none skipped; within the kernel
+    half-width of either end only the sample value counts (the meter's edge rule)."""
+    from bandmeter import peak
+
+    w = KERNEL_HALF_WIDTH
+    per_sample = np.abs(x).copy()
+    per_sample[w:-w] = np.maximum(per_sample[w:-w], peak._refine(x, np.arange(w, x.size - w)))
+    k = plan.interval_index(np.arange(x.size))
+    peaks = np.zeros(int(k.max()) + 1)
+    np.maximum.at(peaks, k, per_sample)
+    return peaks
+
+
+@pytest.mark.parametrize("kind", ADVERSARIAL)
+def test_pruning_without_tolerance_equals_evaluating_every_sample(kind: str) -> None:
+    # with tolerance_db = 0 the bounds only skip samples that cannot exceed the running
+    # peak, so the result equals the same evaluation at every sample (to rounding of the
+    # matrix product, 1e-15); the default 0.01 dB may read lower by at most that much
+    from bandmeter.peak import DEFAULT_TOLERANCE_DB
+
+    x = _adversarial(kind)
+    for plan in (IntervalPlan(None), IntervalPlan(700), IntervalPlan(1000, 13)):
+        everywhere = _refined_everywhere(x, plan)
+        exact = meter_peaks(x, plan, blocks=[4500], tolerance_db=0.0, frame_samples=2048)
+        default = meter_peaks(x, plan, blocks=[4500], frame_samples=2048)
+        got = np.array([exact[k] for k in range(everywhere.size)])
+        np.testing.assert_allclose(got, everywhere, rtol=1e-15, atol=0)
+        low = np.array([default[k] for k in range(everywhere.size)])
+        assert np.all(db(low / everywhere) >= -DEFAULT_TOLERANCE_DB - 1e-12)
+        assert np.all(low <= everywhere * (1 + 1e-15))

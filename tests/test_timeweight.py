@@ -311,3 +311,114 @@ def test_bad_time_constant_and_blocks_raise() -> None:
         tw.process(np.array([1.0, -0.5]))
     with pytest.raises(SettingsError, match=">= 0"):
         TimeWeighting(FS, "I").process(np.array([1.0, np.nan]))
+
+
+# ------------------------------------------ block formulation of the averager (module Speed)
+
+
+def _heavy_tailed_squares(seed: int, n: int) -> np.ndarray:
+    """Squared noise with a log-normal envelope: values over ten decades, none negative."""
+    rng = np.random.default_rng(seed)
+    return (rng.standard_normal(n) * np.exp(2.0 * rng.standard_normal(n))) ** 2
+
+
+@pytest.mark.parametrize("fs", [8000, 48000, 192000])
+@pytest.mark.parametrize("weighting", ["F", "S", "I"])
+def test_block_formulation_matches_the_lfilter_recursion(fs: int, weighting: str) -> None:
+    # reference: scipy.signal.lfilter of y[n] = a y[n-1] + (1 - a) x[n] in one call, from the
+    # same initial value; every term of the frame sums is positive, so they agree to 1e-13
+    # relative (the recursion's own rounding is of that order over 1/(1 - a) samples)
+    from scipy.signal import lfilter
+
+    from bandmeter import timeweight
+
+    x = _heavy_tailed_squares(fs, 5 * 16384 + 77)
+    avg = ExponentialAverager(fs, TAU[weighting], initial_mean_square=0.3)
+    a = avg.a
+    ref, _ = lfilter([1.0 - a], [1.0, -a], x, zi=[a * 0.3])
+    rng = np.random.default_rng(fs)
+    short = timeweight._BLOCK_MIN_SAMPLES  # below: the lfilter path; frames of 32 otherwise
+    cuts = sorted({*rng.integers(0, x.size, 10).tolist(), 1000, 1000 + short - 1,
+                   1000 + short - 1 + short, 40000, 40031})
+    edges = [0, *cuts, x.size]
+    got = np.concatenate([avg.process(x[lo:hi]) for lo, hi in zip(edges[:-1], edges[1:],
+                                                                   strict=True)])
+    assert np.max(np.abs(got / ref - 1.0)) <= 1e-13
+    assert avg.mean_square == pytest.approx(ref[-1], rel=1e-13)
+
+
+def test_block_formulation_in_digital_silence() -> None:
+    # after a sound, silence: the state is flushed below 1e-200 (bandmeter.numerics) and the
+    # output decays to exact zeros without subnormal numbers (slow arithmetic)
+    avg = ExponentialAverager(FS, TAU_FAST_S)
+    avg.process(_heavy_tailed_squares(1, FS))
+    tiny = np.finfo(np.float64).tiny
+    for _ in range(120):  # 0.125 s time constant: about 11 e-folds per block of 65536
+        y = avg.process(np.zeros(1 << 16))
+        assert np.all((y == 0.0) | (y >= tiny))
+    assert np.all(y == 0.0) and avg.mean_square == 0.0
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    weighting=st.sampled_from(["F", "S", "I"]),
+    seed=st.integers(0, 2**32 - 1),
+    n_segments=st.integers(1, 6),
+)
+def test_segment_maxima_equal_the_maxima_of_the_output(
+    weighting: str, seed: int, n_segments: int
+) -> None:
+    # reference: np.maximum.reduceat of the full per-sample output; blocks longer than the
+    # peak detector's runs of 2**14 samples, segments of any length down to 1 sample
+    rng = np.random.default_rng(seed)
+    x = _random_squared(seed % 1000, 3 * 16384 + 5)
+    fast = TimeWeighting(FS, weighting, initial_mean_square=0.05)
+    full = TimeWeighting(FS, weighting, initial_mean_square=0.05)
+    for lo, hi in ((0, 20000), (20000, 20001), (20001, x.size)):
+        block = x[lo:hi]
+        inner = rng.choice(np.arange(1, block.size), size=min(n_segments - 1, block.size - 1),
+                           replace=False) if block.size > 1 else []
+        starts = np.r_[0, np.sort(inner)].astype(np.intp)
+        got = fast.segment_maxima(block, starts)
+        ref = np.maximum.reduceat(full.process(block), starts)
+        np.testing.assert_allclose(got, ref, rtol=1e-13, atol=0)
+        assert fast.mean_square == pytest.approx(full.mean_square, rel=1e-13)
+
+
+def test_segment_maxima_bad_starts_raise() -> None:
+    tw = TimeWeighting(FS, "I")
+    with pytest.raises(SettingsError, match="segment starts"):
+        tw.segment_maxima(np.ones(10), np.array([1, 5]))
+    with pytest.raises(SettingsError, match="segment starts"):
+        tw.segment_maxima(np.ones(10), np.array([0, 5, 5]))
+    with pytest.raises(SettingsError, match="segment starts"):
+        tw.segment_maxima(np.ones(10), np.array([0, 10]))
+
+
+def test_engine_laf_percentiles_equal_a_level_histogram_of_every_sample() -> None:
+    # the engine counts every settled sample's F level in 0.01 dB bins per interval, over
+    # the occupied bins only (bandmeter.engine._count_levels); reference: a LevelHistogram
+    # (bandmeter.levels) fed with the same F levels, i.e. 10 lg of the F time weighting of
+    # the A-weighted signal, seeded as the engine seeds it
+    from bandmeter.engine import AnalysisSettings, LevelEngine, analyse_array
+    from bandmeter.levels import LevelHistogram
+    from bandmeter.weighting import WeightingFilter
+
+    rng = np.random.default_rng(11)
+    x = 0.05 * rng.standard_normal(3 * FS) * np.repeat(rng.random(30) ** 2 + 0.01, FS // 10)
+    x[FS : FS + FS // 4] = 0.0  # digital silence: levels in the underflow bin
+    settings = AnalysisSettings(interval_s=1.0, percentiles=(1.0, 10.0, 50.0, 90.0, 99.0))
+    _, intervals = analyse_array(x, FS, settings)
+    engine = LevelEngine(FS, settings, total_frames=x.size)
+    a2 = WeightingFilter("A", FS).process(x) ** 2
+    engine.prime(x[: engine.settle_samples + FS])
+    start = engine.settle_samples
+    f = engine.time_weightings["F"].process(a2[start:])
+    for k in range(3):
+        lo, hi = max(k * FS, start), (k + 1) * FS
+        hist = LevelHistogram(0.01, -400.0, 60.0)
+        with np.errstate(divide="ignore"):  # silence: -inf, the underflow bin
+            hist.add_levels(10.0 * np.log10(f[lo - start : hi - start]))
+        want = hist.exceeded(settings.percentiles) + 10.0 * math.log10(2.0)
+        got = [intervals[k].metrics[f"LAF{p:g}_dBFS"] for p in settings.percentiles]
+        np.testing.assert_allclose(got, want, rtol=0, atol=1e-9)

@@ -1,0 +1,204 @@
+"""Tests of bandmeter.blockfilter: the block state-space kernel on one SOS cascade.
+
+References: ``scipy.signal.sosfilt`` (public API) on the same sections, and a long-double
+(x87 80-bit) evaluation of the same sections in transposed direct form II, which has 11
+more bits than float64 and so serves as the exact response here.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from bandmeter import blockfilter as bf
+from bandmeter.blockfilter import SosFilter
+from bandmeter.errors import SettingsError
+from bandmeter.weighting import WeightingFilter, design_sos
+
+RATES = [8000, 44100, 48000, 96000, 192000]
+
+
+def _signals(n: int, fs: float) -> dict[str, np.ndarray]:
+    rng = np.random.default_rng(61672)
+    noise = rng.standard_normal(n)
+    t = np.arange(n) / fs
+    pink = signal.lfilter(  # Kellet's economy pinking filter (common practice, no source)
+        [0.049922035, -0.095993537, 0.050612699, -0.004408786],
+        [1.0, -2.494956002, 2.017265875, -0.522189400], noise)
+    return {
+        "noise": noise,
+        "noise + 3 Hz + DC": noise + 5.0 * np.sin(2 * np.pi * 3.0 * t) + 2.0,  # infrasound
+        "pink": pink,
+        "0.97 Nyquist": np.cos(np.pi * 0.97 * np.arange(n)),
+    }
+
+
+def _long_double_sosfilt(sos: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Transposed direct form II, section by section, in long double (slow; short x)."""
+    y = x.astype(np.longdouble)
+    for b0, b1, b2, _, a1, a2 in sos.astype(np.longdouble):
+        z1 = z2 = np.longdouble(0.0)
+        out = np.empty_like(y)
+        for i, v in enumerate(y):
+            w = b0 * v + z1
+            z1 = b1 * v - a1 * w + z2
+            z2 = b2 * v - a2 * w
+            out[i] = w
+        y = out
+    return y
+
+
+def _in_blocks(f: SosFilter, x: np.ndarray, cuts: list[int]) -> np.ndarray:
+    edges = [0, *cuts, x.size]
+    return np.concatenate([f.process(x[a:b]) for a, b in zip(edges[:-1], edges[1:],
+                                                               strict=True)])
+
+
+@pytest.mark.parametrize("fs", RATES)
+@pytest.mark.parametrize("letter", ["A", "C"])
+def test_weighting_sections_take_the_block_path(fs: int, letter: str) -> None:
+    f = SosFilter(design_sos(letter, fs))
+    assert f.block_path is None
+    f.process(np.zeros(3))
+    assert f.block_path is True  # passed the first-use probe against sosfilt
+    assert bf._probe_cascade(f._kernel, f.sos) < 1e-12  # margin to _BLOCK_TOL = 1e-11
+
+
+@pytest.mark.parametrize("fs", RATES)
+@pytest.mark.parametrize("letter", ["A", "C"])
+def test_matches_scipy_sosfilt_on_random_block_splits(fs: int, letter: str) -> None:
+    # reference: scipy.signal.sosfilt in one call from rest. Tolerance, relative to the
+    # largest output: 2e-12 at 44.1 and 48 kHz; at 8, 96 and 192 kHz sosfilt itself errs by
+    # up to 4e-11 (long-double reference, next test), so the two agree to 1e-10 there
+    sos = design_sos(letter, fs)
+    rng = np.random.default_rng(fs + ord(letter))
+    tol = 2e-12 if fs in (44100, 48000) else 1e-10
+    for name, x in _signals(3 * 16384 + 77, fs).items():
+        ref = signal.sosfilt(sos, x)
+        cuts = sorted(rng.integers(0, x.size, 12).tolist())
+        cuts += [x.size - 300, x.size - 299, x.size - 44]  # blocks of 1 sample and more
+        got = _in_blocks(SosFilter(sos), x, sorted(cuts))
+        assert got.shape == ref.shape
+        dev = np.max(np.abs(got - ref)) / np.max(np.abs(ref))
+        assert dev <= tol, (name, dev)
+
+
+@pytest.mark.parametrize(("fs", "letter"), [(48000, "A"), (48000, "C"), (192000, "C")])
+def test_as_accurate_as_sosfilt_against_long_double(fs: int, letter: str) -> None:
+    # the block path's realisation (module notes): its error against the long-double
+    # evaluation stays within that of sosfilt (factor 2 and 1e-14 of the output for rounding
+    # luck), and below 1e-11 of the output even with strong infrasound
+    sos = design_sos(letter, fs)
+    for name, x in _signals(12000, fs).items():
+        exact = _long_double_sosfilt(sos, x)
+        scale = float(np.max(np.abs(exact)))
+        err_kernel = float(np.max(np.abs(SosFilter(sos).process(x) - exact))) / scale
+        err_sosfilt = float(np.max(np.abs(signal.sosfilt(sos, x) - exact))) / scale
+        assert err_kernel <= 2.0 * err_sosfilt + 1e-14, (name, err_kernel, err_sosfilt)
+        assert err_kernel < 1e-11, name
+
+
+def test_streaming_invariance_small_and_odd_blocks() -> None:
+    # blocks of 0, 1, 2, sub-frame and frame lengths +-1 and long ones: the same output as one
+    # block, to rounding (the kernel regroups the arithmetic by the block's frames)
+    sos = design_sos("A", 48000)
+    sub, frame = bf._BLOCK_SUB, bf._BLOCK_FRAME
+    lengths = [0, 1, 2, sub - 1, sub, sub + 1, frame // 2 - 1, frame // 2, frame - 1, frame,
+               frame + 1, 0, 64 * frame + 5, 3]
+    x = np.random.default_rng(3).standard_normal(sum(lengths))
+    one = SosFilter(sos).process(x)
+    got = _in_blocks(SosFilter(sos), x, np.cumsum(lengths)[:-1].tolist())
+    assert np.max(np.abs(got - one)) <= 1e-13 * np.max(np.abs(one))
+
+
+def test_silence_leaves_no_subnormal_numbers() -> None:
+    # after a sound, digital silence: the states are flushed below 1e-200 (bandmeter.numerics),
+    # so the output decays to exact zeros without passing through subnormal numbers
+    f = SosFilter(design_sos("C", 48000))
+    f.process(np.random.default_rng(4).standard_normal(48000))
+    tiny = np.finfo(np.float64).tiny  # smallest normal number
+    for _ in range(40):
+        y = f.process(np.zeros(65536))
+        assert not np.any((y != 0.0) & (np.abs(y) < tiny))
+    assert np.all(f._state == 0.0) and np.all(y == 0.0)
+    f.process(np.full(10, 1e-310))  # subnormal input is filtered, not refused
+    f.reset()
+    np.testing.assert_array_equal(f.process(np.zeros(100)), 0.0)
+
+
+def test_failed_probe_falls_back_to_sosfilt(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(bf, "_BLOCK_TOL", -1.0)  # no kernel can pass
+    sos = design_sos("A", 48000)
+    x = np.random.default_rng(5).standard_normal(20000)
+    f = SosFilter(sos)
+    got = _in_blocks(f, x, [7000, 7001])
+    assert f.block_path is False
+    np.testing.assert_allclose(got, signal.sosfilt(sos, x), rtol=0, atol=1e-15)
+
+
+def _double_pole_row(gain: float, p: float) -> list[float]:
+    return [gain, -2.0 * gain, gain, 1.0, -2.0 * p, p * p]  # (1 - z^-1)^2 / (1 - p z^-1)^2
+
+
+@pytest.mark.parametrize("row", [
+    [1.25, -2.5, 1.25, 1.0, -1.99461446, 0.99462171],  # DC zeros, real poles near z = 1
+    _double_pole_row(0.9, 0.9973),  # DC zeros, double real pole (matched z, as in A and C)
+    _double_pole_row(1.1, 0.99933),  # the same at 192 kHz
+    [0.5, 0.1, -0.01, 1.0, -0.4, 0.04],  # other zeros: sosfilt's realisation
+    [0.3, 0.2, 0.1, 1.0, -1.2, 0.8],  # complex poles
+])
+def test_section_realisation_has_the_section_response(row: list[float]) -> None:
+    # impulse response of the realisation (A, B, C, D) against sosfilt's
+    sos = np.array([row])
+    a, b, c, d = bf._cascade_state_space(sos)
+    s, h = np.zeros(2), []
+    for x in [1.0] + [0.0] * 199:
+        h.append(c @ s + d * x)
+        s = a @ s + b * x
+    ref = signal.sosfilt(sos, np.r_[1.0, np.zeros(199)])
+    np.testing.assert_allclose(h, ref, rtol=0, atol=1e-13 * np.max(np.abs(ref)))
+
+
+def test_dc_zero_sections_use_the_low_pass_complement() -> None:
+    # A-weighting sections with zeros at DC and real poles: triangular transition matrix with
+    # the poles on the diagonal (module notes)
+    sos = design_sos("A", 48000)
+    a, *_ = bf._cascade_state_space(sos[:1])
+    p = -sos[0, 4] / 2.0  # the double pole (matched z)
+    np.testing.assert_allclose(np.diag(a), [p, p], rtol=1e-15)
+    assert a[0, 1] == 0.0 and a[1, 0] == pytest.approx(-(1.0 - p), rel=1e-12)
+    assert np.max(np.abs(np.linalg.matrix_power(a, 4096))) < 1.0  # no transient growth
+
+
+def test_weighting_filter_runs_on_the_block_path() -> None:
+    fs = 48000
+    tone = np.sin(2 * np.pi * 1000 * np.arange(fs) / fs)
+    w = WeightingFilter("A", fs)
+    out = w.process(tone)
+    assert w._filter.block_path is True
+    # 0 dB at 1 kHz (IEC 61672-1:2013 Table 3): the steady part has the tone's amplitude
+    assert math.sqrt(2.0 * np.mean(out[fs // 2 :] ** 2)) == pytest.approx(1.0, abs=1e-4)
+
+
+def test_bad_sections_raise() -> None:
+    with pytest.raises(SettingsError, match="shape"):
+        SosFilter(np.ones(6))
+    with pytest.raises(SettingsError, match="shape"):
+        SosFilter(np.ones((2, 5)))
+
+
+@pytest.mark.parametrize("m", [1, 7, 418, 419, 5000])
+def test_matmul_rows_equals_one_product(m: int) -> None:
+    # pieces of rows small enough for one BLAS thread: the same dot products as one call
+    # (numpy's matmul reference), also for a strided view like the decimator's
+    rng = np.random.default_rng(m)
+    a, b = rng.standard_normal((m, 33)), rng.standard_normal((33, 19))
+    np.testing.assert_allclose(bf.matmul_rows(a, b), a @ b, rtol=1e-14, atol=1e-14)
+    big = rng.standard_normal((2 * m, 66))
+    view = big[::2, ::2]
+    np.testing.assert_allclose(bf.matmul_rows(view, b), view @ b, rtol=1e-14, atol=1e-14)
+    out = np.empty((m, 19))
+    assert bf.matmul_rows(a, b, out=out) is out
