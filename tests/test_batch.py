@@ -410,3 +410,25 @@ def test_events_over_a_batch_folder(tmp_path):
     assert again.exit_code == 1 and "changed since the batch" in again.stderr
     refused = CliRunner().invoke(cli, ["events", str(out), "--full-scale-level", "100"])
     assert refused.exit_code == 1 and "batch folder" in refused.stderr
+
+
+def test_dask_local_workers_keep_freed_memory():
+    # Dask's nanny gives its workers MALLOC_TRIM_THRESHOLD_=65536 (its default
+    # configuration); --dask local gives them the engine's amount instead, read here from
+    # a worker process's own environment
+    import dask
+    from distributed import Client, LocalCluster
+
+    from bandmeter.engine import MALLOC_KEEP_BYTES
+    from bandmeter.executors import _dask_worker_config
+
+    with dask.config.set(_dask_worker_config()):
+        cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
+                               dashboard_address=None)
+    try:
+        with Client(cluster) as client:
+            env = client.submit(lambda: dict(os.environ), pure=False).result()
+    finally:
+        cluster.close()
+    assert env["MALLOC_TRIM_THRESHOLD_"] == str(MALLOC_KEEP_BYTES)
+    assert env["MALLOC_MMAP_THRESHOLD_"] == str(MALLOC_KEEP_BYTES)
