@@ -1090,6 +1090,10 @@ def analyse_recordings(
             first_boundary=first_boundary,
             total_frames=frames,
         )
+    except SettingsError as exc:  # e.g. no band at this sample rate: name the recording
+        if str(exc).startswith(path):
+            raise
+        raise SettingsError(f"{path}: {exc}") from None
     finally:
         for rec in recordings:
             rec.close()

@@ -191,7 +191,7 @@ def test_sample_rate_too_low_for_the_bands(tmp_path):
     assert "bands 4k, 5k, 6.3k, 8k, 10k, 12.5k, 16k, 20k Hz dropped" in warning[0]
     assert "8000 Hz" in warning[0]
     none_left = run("levels", path, "--dbfs", "--bands", "octave", "--fmin", "8000")
-    one_line_error(none_left, "no 1/1-octave band", "fs/2 = 4000 Hz")
+    one_line_error(none_left, str(path), "no 1/1-octave band", "fs/2 = 4000 Hz")
 
 
 def test_interval_longer_than_the_file(site):
