@@ -332,6 +332,18 @@ def _band_segments(plan: IntervalPlan, j0: int, d: int, shift: int, m: int, lo_t
     return seg, plan.interval_index(times)
 
 
+def _band_time_span(state: _BandState, m: int, limit: int | None) -> tuple[int, int]:
+    """Input-sample span [lo, hi) that the next ``m`` outputs of a band stand for: their
+    times at the input rate less the band's delay, from 0, ending at ``limit`` if given."""
+    d, shift, j0 = state.factor, state.shift, state.position
+    lo_t = max(j0 * d - shift, 0)
+    hi_t = max((j0 + m) * d - shift, lo_t + 1)
+    if limit is not None:
+        hi_t = min(hi_t, limit)
+        lo_t = min(lo_t, hi_t - 1)
+    return lo_t, hi_t
+
+
 class LevelEngine:
     """Streaming sound level analysis of one channel.
 
@@ -660,11 +672,7 @@ class LevelEngine:
             if m == 0:
                 continue
             d, shift, j0 = state.factor, state.shift, state.position
-            lo_t = max(j0 * d - shift, 0)
-            hi_t = max((j0 + m) * d - shift, lo_t + 1)
-            if limit is not None:
-                hi_t = min(hi_t, limit)
-                lo_t = min(lo_t, hi_t - 1)
+            lo_t, hi_t = _band_time_span(state, m, limit)
             seg, ids = _band_segments(self.plan, j0, d, shift, m, lo_t, hi_t)
             acc.ensure(int(ids[-1]))
             y2 = y * y
@@ -694,11 +702,7 @@ class LevelEngine:
             if m == 0:
                 continue
             d, shift, j0 = state.factor, state.shift, state.position
-            lo_t = max(j0 * d - shift, 0)
-            hi_t = max((j0 + m) * d - shift, lo_t + 1)
-            if limit is not None:
-                hi_t = min(hi_t, limit)
-                lo_t = min(lo_t, hi_t - 1)
+            lo_t, hi_t = _band_time_span(state, m, limit)
             k_lo, k_hi = _interval_number(plan, lo_t), _interval_number(plan, hi_t - 1)
             if k_hi >= sums.shape[0]:
                 acc.ensure(k_hi)
