@@ -40,13 +40,16 @@ def mutations(data: bytes, rng: random.Random, count: int):
 def test_mutated_fixtures_fail_cleanly(tmp_path, name):
     with open(os.path.join(FIXTURES, name), "rb") as handle:
         data = handle.read()
-    rng = random.Random(hash(name) & 0xFFFF)
+    rng = random.Random(sum(name.encode()))  # the same mutations in every run
     for i, blob in enumerate(mutations(data, rng, 12)):
         path = tmp_path / f"m{i}_{name}"
         path.write_bytes(blob)
         result = CliRunner().invoke(cli, ["levels", str(path), "--dbfs", "--json"])
         assert result.exit_code in (0, 1), (i, result.output)
-        assert "Traceback" not in result.output and "internal error" not in result.output
+        # bandmeter's own "internal error:" (exit 3) marks a case nobody foresaw; libsndfile's
+        # "Unspecified internal error" inside a one-line refusal (exit 1) is a clean message
+        assert "Traceback" not in result.output
+        assert not result.output.startswith("Error: internal error"), result.output
         if result.exit_code == 1:
             assert result.stderr.count("\n") == 1, result.stderr  # one line
 
