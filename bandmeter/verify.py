@@ -79,7 +79,7 @@ SOFTWARE_ONLY_NOTE = (
     "generated in the digital domain; it does not verify the microphone, preamplifier, "
     "recorder or their calibration. A class statement for an instrument needs the whole "
     "measurement chain tested (IEC 61672-3 periodic tests, IEC 61260-3 for filters). "
-    "Limits marked 'from memory' are unconfirmed transcriptions."
+    "Limits marked 'from memory' are recalled values, not yet checked against the standards."
 )
 #: Short form of :data:`SOFTWARE_ONLY_NOTE` for the ``scope`` column of the CSV report.
 SOFTWARE_ONLY_SHORT = "software only: not the microphone, preamplifier or recorder"

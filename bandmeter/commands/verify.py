@@ -112,7 +112,7 @@ def render_report(report: VerificationReport) -> str:
         "  format where stated; levels in dB re full scale) and analysed by the same reader,",
         "  level engine and filter bank that analyse recordings.",
         "  margin: distance to the nearer limit (positive = inside); limits marked 'from",
-        "  memory' are unconfirmed transcriptions of the standards",
+        "  memory' are recalled values, not yet checked against the standards",
     ]
     for name in GROUPS:
         tests = [t for t in report.tests if t.group == name]
