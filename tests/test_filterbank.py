@@ -2,7 +2,7 @@
 
 Class 1 conformance is measured through the real time-domain path: steady sines go through
 ``FractionalOctaveBank.process`` (decimators included) and the band output's mean square is
-read after the start-up transient. The limits below are transcribed here, independently of
+read after the start-up transient. The limits below are copied here, independently of
 the module, from REFERENCE_VALUES.md 5.2 (GOST R 70024 Table B.1 = IEC 61260-1:2014 Table 1,
 class 1; the G^(1/2) row is from memory, unconfirmed; the 70 dB minimum beyond G^4 is assumed
 to continue, from memory). The exhaustive every-band sweep lives in
@@ -68,7 +68,7 @@ def test_breakpoint_mapping_reproduces_printed_third_octave_values():
     assert 1.0 / bp[-1] == pytest.approx(0.18546, abs=6e-6)
 
 
-def test_module_limits_agree_with_transcribed_table():
+def test_module_limits_agree_with_the_copied_table():
     om = np.concatenate([breakpoints(3), np.geomspace(0.05, 20.0, 301)])
     lo, hi = fb.class1_limits(om, 3)
     for o, low, high in zip(om, lo, hi, strict=True):
