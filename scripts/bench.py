@@ -83,19 +83,6 @@ def run_bandmeter(path: str) -> None:
     analyse_file(path, from_full_scale_level(120.0), settings)
 
 
-def _third_octave_butterworth(fs: float) -> list[np.ndarray]:
-    """Order-4 Butterworth band-passes, one-third octaves 20 Hz - 20 kHz (base 10)."""
-    from scipy import signal
-
-    soss = []
-    for x in range(-17, 14):
-        fm = 1000.0 * 10.0 ** (0.1 * x)
-        lo, hi = fm * 10.0 ** -0.05, fm * 10.0**0.05
-        if hi < fs / 2:
-            soss.append(signal.butter(4, [lo, hi], btype="bandpass", fs=fs, output="sos"))
-    return soss
-
-
 def run_plain_scipy(path: str) -> None:
     """The same analysis as ``run_bandmeter``, written with plain numpy and scipy."""
     import hashlib
@@ -116,7 +103,9 @@ def run_plain_scipy(path: str) -> None:
     zi_t = {k: np.zeros(1) for k in coef}
     hold_decay = math.exp(-1.0 / (FS * 1.5))
     held = 0.0
-    band_sos = _third_octave_butterworth(FS)
+    from bench_levels import third_octave_butterworth
+
+    band_sos = third_octave_butterworth(FS)
     band_zi = [np.zeros((s.shape[0], 2)) for s in band_sos]
     hist = np.zeros(46000, dtype=np.int64)  # 0.01 dB bins from -400 dB re full scale
     ctx_c, ctx_z = np.zeros(16), np.zeros(16)
