@@ -2,14 +2,33 @@
 
 A cascade of ``N`` second-order sections is a linear system with ``2 N`` states. Run sample
 by sample (``scipy.signal.sosfilt``) it costs some 20 multiply-adds per sample, but every
-sample waits for the previous one, so the processor is latency-bound: about 6.5 ns per
-sample for 4 sections on the development machine. :class:`_BlockKernel` regroups the same
+sample waits for the previous one, so the processor is latency-bound: about 7 ns per sample
+for 4 sections on the development machine. :class:`_BlockKernel` regroups the same
 arithmetic into matrix products over frames of samples (see its notes), which cost about
-twice the multiply-adds but run at BLAS throughput: about 2.6 ns per sample and cascade for
-4 band filters together, about 4 ns for one cascade of 4 sections alone. The
-fractional-octave bank (:mod:`bandmeter.filterbank`) runs its band filters through it in
-groups, and :class:`SosFilter` runs one cascade (the A and C frequency weightings,
-:mod:`bandmeter.weighting`).
+twice the multiply-adds but run at BLAS throughput. One run at 48 kHz, blocks of 131072
+samples, one core: 3.1 ns per sample and cascade for the bank's 4 full-rate band filters
+together, 3.3 ns for the A and C weightings together, 3.8 ns for the A weighting (4
+sections) alone, against 7.2 ns for sosfilt in the same run. The fractional-octave bank
+(:mod:`bandmeter.filterbank`) runs its band filters through it in groups,
+:class:`SosFilter` runs one cascade and :class:`MultiSosFilter` several cascades of one
+input (the A and C frequency weightings, :mod:`bandmeter.weighting`): on one kernel A and C
+take 0.86-0.91 of the time of a kernel each at 44.1, 48 and 96 kHz (medians of interleaved
+runs), as the products cover both and the per-call costs are paid once.
+
+Speed notes
+    The time goes into the output products (about half of the bank's time), the sub-frame
+    steps and the frame recurrence; the kernel is bound by arithmetic and cache traffic,
+    not by Python. The frames of a block are read from the input in place: only a block
+    that ends inside a frame has its last chunk copied and zero padded, which saved about
+    3 % of the bank's full-rate stage. The knobs ``_BLOCK_SUB``, ``_OUT_COLS``,
+    ``_BLOCK_FRAME`` and ``_WORK_BYTES`` were measured in the whole bank at 48 kHz
+    (sub-frames of 16 and 32, output chunks of 8, 16 and 32 columns, frames of 128, 256 and
+    512, work arrays of 256 KiB to 4 MiB, interleaved runs): the defaults were fastest or
+    within the noise, every other set 0-20 % slower. Fewer multiply-adds (sub-frames of 16:
+    40 per band-sample instead of 46) do not pay for the doubled number of sub-frame steps;
+    one product of 16 or 32 output columns costs more multiply-adds than it saves in calls;
+    writing the outputs through a scratch array, or taking the output products band by
+    band (to keep each band's rows in the cache), was slower.
 
 State-space realisations
     :func:`_state_space` uses the state of ``sosfilt`` (transposed direct form II, the
@@ -72,7 +91,7 @@ from scipy.linalg import blas
 from bandmeter.errors import SettingsError
 from bandmeter.numerics import flush_tiny
 
-__all__ = ["SosFilter"]
+__all__ = ["MultiSosFilter", "SosFilter"]
 
 #: Block path: samples per frame of the frame-to-frame state recurrence.
 _BLOCK_FRAME: int = 256
@@ -275,12 +294,29 @@ class _FrameLevel:
             self._band = (frames, np.asfortranarray(full))
         return self._band[1]
 
-    def states(self, frames_x: np.ndarray, state: np.ndarray) -> np.ndarray:
-        """States after each frame of ``frames_x`` (shape (frames, frame)) entered with
-        ``state`` (bands, n); shape (bands, frames, n), tiny values flushed."""
+    def states(self, frames_x: Sequence[np.ndarray], state: np.ndarray) -> np.ndarray:
+        """States after each frame of the input entered with ``state`` (bands, n).
+
+        Parameters
+        ----------
+        frames_x : sequence of ndarray, shapes (frames_i, frame)
+            The input's frames, in pieces (concatenated along the first axis).
+        state : ndarray, shape (bands, n)
+            State before the first frame.
+
+        Returns
+        -------
+        ndarray, shape (bands, frames, n)
+            State after each frame, tiny values flushed.
+        """
         nb, n, _ = self.gain.shape
-        frames = frames_x.shape[0]
-        drive = matmul_rows(frames_x, self.drive)
+        frames = sum(part.shape[0] for part in frames_x)
+        drive = np.empty((frames, nb * n))
+        f0 = 0
+        for part in frames_x:
+            if part.shape[0]:
+                matmul_rows(part, self.drive, out=drive[f0 : f0 + part.shape[0]])
+            f0 += part.shape[0]
         drive = drive.reshape(frames, nb, n).transpose(1, 0, 2).copy()
         drive[:, 0, :] += np.matmul(self.gain, state[:, :, None])[:, :, 0]
         tops = blas.dtbsv(
@@ -301,12 +337,14 @@ class _BlockKernel:
     (3) the states at the sub-frame starts, one sub-frame step at a time but for all frames
     and bands at once; (4) the outputs of every sub-frame, ``y = obs s + toeplitz x``, as
     matrix products of ``[s, x]`` with the stacked matrices, in chunks of ``_OUT_COLS``
-    columns (so that the zero upper triangle of ``toeplitz`` is mostly skipped). The tail of a
-    block shorter than a frame is handled by zero padding (outputs past the end are
-    discarded); the state at the true end of the block is computed from the last sub-frame
-    start. By default the states are those of sosfilt's layout (reversed section order,
-    :func:`_state_space`), so the bank can switch between this path and sosfilt at any block;
-    ``realise`` may choose another realisation of the same sections.
+    columns (so that the zero upper triangle of ``toeplitz`` is mostly skipped). The frames
+    are read from the input in place, in chunks of at most ``_WORK_BYTES`` of work array;
+    a block that ends inside a frame has its last chunk copied and zero padded (outputs
+    past the end are discarded); the state at the true end of the block is computed from
+    the last sub-frame start. By default the states are those of sosfilt's layout
+    (reversed section order, :func:`_state_space`), so the bank can switch between this path
+    and sosfilt at any block; ``realise`` may choose another realisation of the same
+    sections.
 
     Parameters
     ----------
@@ -399,22 +437,31 @@ class _BlockKernel:
         n, sub = self.n_states, self.sub
         frame = self.frame_for(x.size) if frame is None else frame
         frames = -(-x.size // frame)
-        padded = self._buffer("pad", (frames * frame,))
-        padded[: x.size] = x
-        padded[x.size :] = 0.0
-        tops = self.level(frame).states(padded.reshape(frames, frame), state)
-        starts = np.concatenate([state[:, None, :], tops[:, :-1]], axis=1)
-        dest = out[:, : frames * frame].reshape(self.n_bands, frames, frame)
         per_chunk = max(1, _WORK_BYTES // (8 * self.n_bands * (frame + frame // sub * n)))
         # and products of at most SINGLE_THREAD_MACS per band (see matmul_rows)
         per_chunk = min(per_chunk, max(1, SINGLE_THREAD_MACS // (
             (frame // sub) * (n + sub) * self.cols)))
+        # the frames of the last chunk, zero padded to whole frames (copied only when x ends
+        # inside a frame); the frames before it are read from x in place
+        last = (frames - 1) // per_chunk * per_chunk
+        if x.size == frames * frame:
+            tail = x[last * frame :]
+        else:
+            tail = self._buffer("pad", ((frames - last) * frame,))
+            tail[: x.size - last * frame] = x[last * frame :]
+            tail[x.size - last * frame :] = 0.0
+        head = x[: last * frame].reshape(last, frame)
+        tail = tail.reshape(frames - last, frame)
+        tops = self.level(frame).states([head, tail], state)
+        dest = out[:, : frames * frame].reshape(self.n_bands, frames, frame)
         q, r = divmod(x.size, sub)
+        start = state.copy()
         state[...] = tops[:, -1]
         for f0 in range(0, frames, per_chunk):
             f1 = min(frames, f0 + per_chunk)
-            piece = padded[f0 * frame : f1 * frame]
-            rows = self._subframes(piece, starts[:, f0:f1], dest[:, f0:f1])
+            piece = head[f0:f1] if f0 < last else tail
+            rows = self._subframes(piece, start, tops[:, f0 : f1 - 1], dest[:, f0:f1])
+            start = tops[:, f1 - 1]
             first = f0 * frame // sub
             if first <= q < first + rows.shape[1]:
                 row = rows[:, q - first]
@@ -423,15 +470,19 @@ class _BlockKernel:
                 else:
                     state[...] = np.matmul(row[:, None, : n + r], self.final[r])[:, 0, :]
 
-    def _subframes(self, x: np.ndarray, starts: np.ndarray, dest: np.ndarray) -> np.ndarray:
-        """States and outputs of the sub-frames of whole frames ``x`` entered with ``starts``.
+    def _subframes(
+        self, x: np.ndarray, start: np.ndarray, tops: np.ndarray, dest: np.ndarray
+    ) -> np.ndarray:
+        """States and outputs of the sub-frames of whole frames ``x``.
 
         Parameters
         ----------
-        x : ndarray, shape (frames * frame,)
+        x : ndarray, shape (frames, frame)
             Input of whole frames.
-        starts : ndarray, shape (bands, frames, n)
-            State at the start of each frame.
+        start : ndarray, shape (bands, n)
+            State at the start of the first frame.
+        tops : ndarray, shape (bands, frames - 1, n)
+            States at the start of the other frames.
         dest : ndarray, shape (bands, frames, frame)
             Receives the outputs.
 
@@ -445,7 +496,8 @@ class _BlockKernel:
         subs = frame // sub
         work = self._buffer("work", (nb, frames, subs, n + sub))
         work[:, :, :, n:] = x.reshape(frames, subs, sub)
-        work[:, :, 0, :n] = starts
+        work[:, 0, 0, :n] = start
+        work[:, 1:, 0, :n] = tops
         for i in range(subs - 1):
             np.matmul(work[:, :, i, :], self.step, out=work[:, :, i + 1, :n])
         rows = work.reshape(nb, frames * subs, n + sub)
@@ -493,29 +545,165 @@ def _probe_deviation(kernel: _BlockKernel, soss: Sequence[np.ndarray]) -> np.nda
 
 
 
-def _probe_cascade(kernel: _BlockKernel, sos: np.ndarray) -> float:
-    """Largest relative deviation of a one-cascade ``kernel`` from ``scipy.signal.sosfilt``.
+def _probe_cascades(kernel: _BlockKernel, soss: Sequence[np.ndarray]) -> np.ndarray:
+    """Largest relative deviation of ``kernel`` from ``scipy.signal.sosfilt``, per cascade.
 
     For each frame length the kernel uses, a seeded noise probe is filtered from the zero
     state in three blocks (300 samples; two frames, a sub-frame and 3 samples; 17 samples),
-    so that every part of the block path runs and the state is carried twice; the deviation
-    is taken relative to the largest reference output. The kernel may use any realisation:
-    only outputs are compared.
+    so that every part of the block path runs and the state is carried twice; each
+    cascade's deviation is taken relative to its largest reference output. The kernel may
+    use any realisation, and may run ``soss[j]`` with identity sections appended
+    (:func:`_pad_sections`): only outputs are compared, with those of ``soss[j]`` itself.
     """
     rng = np.random.default_rng(61672)
-    dev = 0.0
+    dev = np.zeros(len(soss))
     for frame in (_BLOCK_FRAME // 2, _BLOCK_FRAME):
         parts = [rng.standard_normal(k) for k in (300, 2 * frame + kernel.sub + 3, 17)]
-        ref = signal.sosfilt(sos, np.concatenate(parts))
-        state = np.zeros((1, kernel.n_states))
+        x = np.concatenate(parts)
+        state = np.zeros((len(soss), kernel.n_states))
         got = []
         for part in parts:
-            out = np.empty((1, 3 * frame))
+            out = np.empty((len(soss), 3 * frame))
             kernel.process(part, state, out, frame=frame)
-            got.append(out[0, : part.size])
-        d = np.max(np.abs(np.concatenate(got) - ref)) / np.max(np.abs(ref))
-        dev = max(dev, float(d)) if np.isfinite(d) else math.inf
+            got.append(out[:, : part.size])
+        y = np.concatenate(got, axis=1)
+        for j, sos in enumerate(soss):
+            ref = signal.sosfilt(sos, x)
+            d = np.max(np.abs(y[j] - ref)) / np.max(np.abs(ref))
+            dev[j] = max(dev[j], float(d)) if np.isfinite(d) else math.inf
     return dev
+
+
+def _probe_cascade(kernel: _BlockKernel, sos: np.ndarray) -> float:
+    """:func:`_probe_cascades` of a one-cascade ``kernel``."""
+    return float(_probe_cascades(kernel, [sos])[0])
+
+
+def _pad_sections(sos: np.ndarray, sections: int) -> np.ndarray:
+    """``sos`` with identity sections ``[1, 0, 0, 1, 0, 0]`` appended up to ``sections`` rows.
+
+    An identity section passes its input unchanged and its states stay exactly zero, in
+    sosfilt and in the block kernel alike (its state input and coupling are exact zeros),
+    so a padded cascade has the output of the original one; it lets cascades of different
+    lengths share one kernel.
+    """
+    extra = sections - sos.shape[0]
+    return np.vstack([sos, np.tile([1.0, 0.0, 0.0, 1.0, 0.0, 0.0], (extra, 1))])
+
+
+def _check_sos(sos: np.ndarray) -> np.ndarray:
+    arr = np.array(sos, dtype=np.float64, order="C")
+    if arr.ndim != 2 or arr.shape[1] != 6 or arr.shape[0] < 1:
+        raise SettingsError(f"sos must have shape (sections, 6), got {arr.shape!r}")
+    return arr
+
+
+class MultiSosFilter:
+    """Streaming filters of several cascades of second-order sections on one input signal.
+
+    The cascades run together on one block kernel, as the bands of the filter bank do:
+    the products then cover all of them, which is cheaper than a kernel per cascade
+    (module notes). Cascades with fewer sections than the longest are padded with
+    identity sections (:func:`_pad_sections`), which does not change their output.
+
+    Parameters
+    ----------
+    soss : sequence of array_like, each of shape (sections, 6)
+        Rows ``[b0, b1, b2, 1, a1, a2]`` of each cascade, as for
+        :func:`scipy.signal.sosfilt`.
+
+    Attributes
+    ----------
+    soss : list of numpy.ndarray
+        The sections of each cascade (copies, not padded).
+    block_path : list of bool or None
+        Per cascade: True when the block kernel passed its first-use probe and filters
+        every block, False when ``scipy.signal.sosfilt`` does; None before the first
+        sample.
+
+    Notes
+    -----
+    The filters start at rest; their states carry across :meth:`process` calls, so any
+    split of a signal into blocks gives the outputs of one pass (to rounding). On the first
+    non-empty block the kernel, with the realisation of :func:`_cascade_state_space`, is
+    checked on a probe against ``scipy.signal.sosfilt`` (:func:`_probe_cascades`); a
+    cascade beyond ``_BLOCK_TOL`` is filtered by sosfilt for good, the others stay on a
+    kernel of their own. States below 1e-200 are flushed after each block (no slow
+    subnormal arithmetic in silence).
+
+    Examples
+    --------
+    >>> from scipy import signal
+    >>> low = signal.butter(4, 0.1, output="sos")
+    >>> high = signal.butter(3, 0.2, btype="high", output="sos")
+    >>> x = np.random.default_rng(0).standard_normal(10000)
+    >>> f = MultiSosFilter([low, high])
+    >>> first = f.process(x[:3000])
+    >>> y_low, y_high = (np.concatenate(p) for p in zip(first, f.process(x[3000:])))
+    >>> bool(np.allclose(y_high, signal.sosfilt(high, x), rtol=0, atol=1e-12))
+    True
+    """
+
+    def __init__(self, soss: Sequence[np.ndarray]) -> None:
+        if len(soss) < 1:
+            raise SettingsError("at least one cascade of sections is needed, got none")
+        self.soss = [_check_sos(sos) for sos in soss]
+        self.block_path: list[bool] | None = None
+        self._kernel: _BlockKernel | None = None
+        self._members: list[int] = []  # cascades on the kernel, in kernel order
+        self.reset()
+
+    def reset(self) -> None:
+        """Return every filter to rest (zero state)."""
+        n = 2 * max(sos.shape[0] for sos in self.soss)
+        count = len(self.soss) if self.block_path is None else len(self._members)
+        self._state = np.zeros((count, n))  # block kernel, its realisation
+        self._zi = [np.zeros((sos.shape[0], 2)) for sos in self.soss]  # sosfilt
+
+    def _choose_path(self) -> None:
+        sections = max(sos.shape[0] for sos in self.soss)
+        padded = [_pad_sections(sos, sections) for sos in self.soss]
+        kernel = _BlockKernel(padded, realise=_cascade_state_space)
+        dev = _probe_cascades(kernel, self.soss)
+        self.block_path = [bool(d <= _BLOCK_TOL) for d in dev]
+        self._members = [j for j, ok in enumerate(self.block_path) if ok]
+        if 0 < len(self._members) < len(self.soss):
+            kernel = _BlockKernel([padded[j] for j in self._members],
+                                  realise=_cascade_state_space)
+        self._kernel = kernel if self._members else None
+        self._state = np.zeros((len(self._members), 2 * sections))
+
+    def process(self, x: np.ndarray) -> list[np.ndarray]:
+        """Filter the next block by every cascade.
+
+        Parameters
+        ----------
+        x : numpy.ndarray
+            1-D float64 block following the previous one (any length).
+
+        Returns
+        -------
+        list of numpy.ndarray
+            Output of each cascade, new float64 arrays of the length of ``x`` (each may be
+            a view of a slightly longer new array).
+        """
+        n = x.size
+        if n == 0:
+            return [np.zeros(0) for _ in self.soss]
+        if self.block_path is None:
+            self._choose_path()
+        outs: list[np.ndarray] = [np.empty(0)] * len(self.soss)
+        if self._kernel is not None:
+            out = np.empty((len(self._members), self._kernel.padded_length(n)))
+            self._kernel.process(x, self._state, out)
+            flush_tiny(self._state)
+            for row, j in zip(out, self._members, strict=True):
+                outs[j] = row[:n]
+        for j, ok in enumerate(self.block_path):
+            if not ok:
+                outs[j], zi = signal.sosfilt(self.soss[j], x, zi=self._zi[j])
+                self._zi[j] = flush_tiny(zi)
+        return outs
 
 
 class SosFilter:
@@ -536,14 +724,15 @@ class SosFilter:
 
     Notes
     -----
-    The filter starts at rest; its state carries across :meth:`process` calls, so any split
-    of a signal into blocks gives the output of one pass (to rounding: the block kernel
-    regroups the arithmetic by frames of the block). On the first non-empty block the
-    kernel, with the realisation of :func:`_cascade_state_space`, is checked on a probe
-    against ``scipy.signal.sosfilt`` (:func:`_probe_cascade`); beyond ``_BLOCK_TOL`` the
-    filter uses sosfilt for good. Blocks of any length take the chosen path: the kernel
-    costs about as much as sosfilt's argument checks on a block of a few samples. States
-    below 1e-200 are flushed after each block (no slow subnormal arithmetic in silence).
+    :class:`MultiSosFilter` with one cascade. The filter starts at rest; its state carries
+    across :meth:`process` calls, so any split of a signal into blocks gives the output of
+    one pass (to rounding: the block kernel regroups the arithmetic by frames of the
+    block). On the first non-empty block the kernel, with the realisation of
+    :func:`_cascade_state_space`, is checked on a probe against ``scipy.signal.sosfilt``
+    (:func:`_probe_cascades`); beyond ``_BLOCK_TOL`` the filter uses sosfilt for good.
+    Blocks of any length take the chosen path: the kernel costs about as much as sosfilt's
+    argument checks on a block of a few samples. States below 1e-200 are flushed after
+    each block (no slow subnormal arithmetic in silence).
 
     Examples
     --------
@@ -557,23 +746,17 @@ class SosFilter:
     """
 
     def __init__(self, sos: np.ndarray) -> None:
-        arr = np.array(sos, dtype=np.float64, order="C")
-        if arr.ndim != 2 or arr.shape[1] != 6 or arr.shape[0] < 1:
-            raise SettingsError(f"sos must have shape (sections, 6), got {arr.shape!r}")
-        self.sos = arr
-        self.block_path: bool | None = None
-        self._kernel: _BlockKernel | None = None
-        self.reset()
+        self._multi = MultiSosFilter([sos])
+        self.sos = self._multi.soss[0]
+
+    @property
+    def block_path(self) -> bool | None:
+        paths = self._multi.block_path
+        return None if paths is None else paths[0]
 
     def reset(self) -> None:
         """Return the filter to rest (zero state)."""
-        self._state = np.zeros((1, 2 * self.sos.shape[0]))  # block kernel, its realisation
-        self._zi = np.zeros((self.sos.shape[0], 2))  # sosfilt
-
-    def _choose_path(self) -> None:
-        kernel = _BlockKernel([self.sos], realise=_cascade_state_space)
-        self.block_path = _probe_cascade(kernel, self.sos) <= _BLOCK_TOL
-        self._kernel = kernel if self.block_path else None
+        self._multi.reset()
 
     def process(self, x: np.ndarray) -> np.ndarray:
         """Filter the next block.
@@ -589,16 +772,4 @@ class SosFilter:
             Output, a new float64 array of the same length (may be a view of a slightly
             longer new array).
         """
-        n = x.size
-        if n == 0:
-            return np.zeros(0)
-        if self.block_path is None:
-            self._choose_path()
-        if self._kernel is not None:
-            out = np.empty((1, self._kernel.padded_length(n)))
-            self._kernel.process(x, self._state, out)
-            flush_tiny(self._state)
-            return out[0, :n]
-        y, zi = signal.sosfilt(self.sos, x, zi=self._zi)
-        self._zi = flush_tiny(zi)
-        return y
+        return self._multi.process(x)[0]

@@ -61,7 +61,7 @@ from .results import (
     LevelResult,
 )
 from .timeweight import ExponentialAverager, TimeWeighting
-from .weighting import WeightingFilter
+from .weighting import MultiWeightingFilter, WeightingFilter
 
 #: Default samples per block of the analysis, 2**17 (2.7 s at 48 kHz): long blocks keep the
 #: filter bank's deeper stages on its block kernel and spread each stage's per-call cost over
@@ -405,8 +405,7 @@ class LevelEngine:
                 )
         self.interval_samples = interval_samples
         self.plan = IntervalPlan(interval_samples, first_boundary)
-        self.weight_a = WeightingFilter("A", self.fs)
-        self.weight_c = WeightingFilter("C", self.fs)
+        self.weight_ac = MultiWeightingFilter(("A", "C"), self.fs)  # one kernel for both
         self.time_weightings: dict[str, TimeWeighting] = {}
         self.settle_samples = int(round(settings.settle_s * self.fs))
         if total_frames is not None and total_frames < 2 * self.settle_samples:
@@ -501,8 +500,7 @@ class LevelEngine:
         start = self.position
         seg, ids = self._segments(start, n)
         acc = self.acc
-        a = self.weight_a.process(x)
-        c = self.weight_c.process(x)
+        a, c = self.weight_ac.process(x)
         a2 = a * a
         acc["sum_a2"][ids] += np.add.reduceat(a2, seg)
         acc["sum_c2"][ids] += _segment_sums_of_squares(c, seg)

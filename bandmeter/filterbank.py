@@ -64,7 +64,7 @@ Speed
         bank filters 7 full-rate band-equivalents (one-third octaves at 48 kHz: 4 bands at
         48 kHz, 3 per lower octave) instead of 31, so it cannot be more than about 4.4 times
         faster than one full-rate band-pass per band with the same kernel; sosfilt is
-        latency-bound at about 6.5 ns per band-sample on the development machine.
+        latency-bound at about 7 ns per band-sample on the development machine.
     Block state-space kernel (:class:`bandmeter.blockfilter._BlockKernel`)
         Shared with the A and C weightings since it moved to :mod:`bandmeter.blockfilter`
         (the bank uses it unchanged, with sosfilt's state layout and its own probe,
@@ -83,31 +83,46 @@ Speed
         one product per sub-frame of a frame, each over all frames and bands; (4) the outputs
         of all sub-frames, ``y = O s + T x`` (``T`` the lower-triangular Toeplitz matrix of
         the impulse response), as 4 products of 8 output columns each, which skip most of
-        the zero triangle of ``T``. The tail of a block is zero padded (surplus outputs are
-        discarded) and the state at the true end of the block is computed from the last
-        sub-frame start, so block lengths need not be multiples of anything. This costs about
-        46 multiply-adds per band-sample against sosfilt's 20, but at BLAS throughput: about
-        2.6 ns per band-sample for the 4 full-rate bands at 48 kHz, 3-4 ns for 3 bands at
-        6-24 kHz (against sosfilt's 6.5 ns). It is the same arithmetic as sosfilt, regrouped:
+        the zero triangle of ``T``. The frames are read from the stage input in place; the
+        tail of a block is zero padded (surplus outputs are discarded) and the state at the
+        true end of the block is computed from the last sub-frame start, so block lengths
+        need not be multiples of anything. This costs about 46 multiply-adds per
+        band-sample against sosfilt's 20, but at BLAS throughput: in one run (blocks of
+        131072 samples) 3.1 ns per band-sample for the 4 full-rate bands at 48 kHz and
+        3.2 ns for the 3 bands at 24 kHz, against sosfilt's 7.2 ns in the same run; the
+        block path's parameters are the fastest measured (module notes of
+        :mod:`bandmeter.blockfilter`). It is the same arithmetic as sosfilt, regrouped:
         the measured deviation from ``scipy.signal.sosfilt`` is at most 4.5e-14 of the band's
         RMS over every band at 44.1, 48 and 96 kHz for b = 1, 3, 6, 12 and 24 from 1 Hz up
         (``scripts/check_filterbank_block_kernel.py``). Still, on first use every band is
         checked on a noise probe against ``scipy.signal.sosfilt`` and stays on sosfilt if it
         deviates by more than 1e-11 of the probe output (no band does).
 
+    Decimators
+        The 22 even taps run as matrix products of windows of every other input sample with
+        a banded Toeplitz matrix; the windows overlap, which BLAS cannot take as one matrix,
+        so they are taken in interleaved sets that do not overlap (``_HalfbandDecimator``).
+        On long blocks this takes 0.75 of the time of one product over the overlapping
+        windows (which NumPy runs in its own loop, not BLAS); the 9 decimators of a
+        131072-sample block at 48 kHz take 0.7 of that time (interleaved runs, caches
+        evicted between blocks).
+
     Measured with ``scripts/bench_filterbank.py`` (one core, 60 s of noise in 1 s blocks,
     one-third octaves, band mean squares accumulated) on the development machine, a shared
     2-core virtual machine whose figures vary by some +-20 % between runs (the script
-    interleaves the runs it compares): at 48 kHz the bank runs at 565 x real time against
-    93.5 x for the plain full-rate order-4 bank, 6.0 times faster (with sosfilt alone:
-    359 x, 3.8 times); at 44.1 kHz 576 x against 104 x (5.5 times); at 96 kHz 433 x against
-    48 x (9.1 times). Over other runs the 48 kHz ratio was 5.7 to 6.2. Blocks of 0.1 s leave
-    the stages too short for the block path to gain much (4.9 times at 48 kHz); the level
-    engine therefore reads blocks of 2**17 samples (2.7 s at 48 kHz) by default, which keeps
-    every stage down to 750 Hz on the block path. Filter
-    states below 1e-200 are flushed after each block, and the frame states of the block
-    path within a block, so that digital silence does not leave them in slow subnormal
-    arithmetic.
+    interleaves the runs it compares), in one run on a busy machine: at 48 kHz the bank runs
+    at 541 x real time against 79 x for the plain full-rate order-4 bank, 6.8 times faster
+    (with sosfilt alone: 322 x, 4.1 times); at 44.1 kHz 457 x against 94 x (4.9 times); at
+    96 kHz 434 x against 44 x (10.0 times); earlier runs gave 5.7 to 6.2 at 48 kHz and 5.5
+    at 44.1 kHz. Against the previous version (decimators by NumPy's loop, the frames
+    copied into a padded buffer), interleaved in one process, a 131072-sample block takes
+    0.90-0.96 of the time at 44.1, 48 and 96 kHz (medians of several runs). Blocks of 0.1 s
+    leave the stages too short for the block path to gain much (4.9 times at 48 kHz); the
+    level engine therefore reads blocks of 2**17 samples (2.7 s at 48 kHz) by default (6.2
+    times in the same benchmark), which keeps every stage down to 750 Hz on the block path.
+    Filter states below 1e-200 are flushed after each block, and the frame states of the
+    block path within a block, so that digital silence does not leave them in slow
+    subnormal arithmetic.
 
 Input units are preserved: a band's mean square is in input units squared (Pa**2 after
 calibration).
@@ -129,6 +144,7 @@ from bandmeter.blockfilter import (  # noqa: F401 - re-exported: the bank's kern
     _BLOCK_TOL,
     _OUT_COLS,
     _WORK_BYTES,
+    SINGLE_THREAD_MACS,
     _BlockKernel,
     _frame_matrices,
     _FrameLevel,
@@ -462,10 +478,16 @@ class _HalfbandDecimator:
     """Stateful decimate-by-2 with :data:`HALFBAND_TAPS`.
 
     Output sample ``m`` is ``sum_k h[k] x[2m - k]`` where ``x`` is indexed by a global input
-    counter, so the result is independent of how the input is split into blocks. The 22 even
-    taps are applied as one matrix product over chunks of 16 outputs (a banded Toeplitz
-    matrix), several times faster than ``np.convolve`` for this length; the last chunk runs
-    over zero padding and its surplus outputs are dropped.
+    counter, so the result is independent of how the input is split into blocks. The odd
+    taps are zero except the centre one (0.5), so each output is 22 even taps applied to
+    every other input sample plus half of one sample of the other parity. The samples the
+    even taps see are copied into one contiguous array ``e``, and the even taps applied as
+    matrix products of windows of ``e`` (``_CHUNK + 21`` samples, one per ``_CHUNK``
+    outputs) with a banded Toeplitz matrix. Consecutive windows overlap, which BLAS cannot
+    take as one matrix (NumPy would run its own, several times slower loop), so the windows
+    are taken in ``_SETS`` interleaved sets, every ``_SETS``-th window, which do not
+    overlap: each set is a plain strided matrix. The last windows run over zero padding and
+    their surplus outputs are dropped.
     """
 
     _N = len(HALFBAND_TAPS)
@@ -473,6 +495,10 @@ class _HalfbandDecimator:
     _CENTRE = float(HALFBAND_TAPS[len(HALFBAND_TAPS) // 2])
     _CHUNK = 16
     _T = _toeplitz_chunk(_EVEN, _CHUNK)
+    #: Interleaved sets of windows: windows of one set start ``_SETS * _CHUNK`` apart.
+    _SETS = -(-(_CHUNK + len(_EVEN) - 1) // _CHUNK)
+    #: Fewer windows than this are taken as one set (NumPy's loop; fewer calls).
+    _SETS_FROM = 128
 
     def __init__(self) -> None:
         self.reset()
@@ -491,29 +517,42 @@ class _HalfbandDecimator:
         if n == 0:
             return np.zeros(0)
         nh, chunk = self._N - 1, self._CHUNK
-        par = self.count % 2  # ext index of the first output centre is nh // 2 + par
+        span = chunk + self._EVEN.size - 1  # window length
+        # in the stream ext = [hist, x], output m is centred on ext[nh // 2 + par + 2 m]: its
+        # even taps see ext[par + 2 m + 2 j] (j = 0..21), its centre tap the other parity
+        par = self.count % 2
         m = self.output_length(self.count, n)
-        rows = -(-m // chunk)
-        # history, input, and zeros so that the last (partial) chunk needs no special case
-        ext = np.empty(nh + n + 2 * chunk)
-        ext[:nh] = self.hist
-        ext[nh : nh + n] = x
-        ext[nh + n :] = 0.0
-        self.hist = ext[n : n + nh]
+        hist = self.hist
+        self.hist = x[n - nh :].copy() if n >= nh else np.concatenate([hist, x])[-nh:]
         self.count += n
         if m == 0:
             return np.zeros(0)
-        step = ext.strides[0]
-        frame = np.ndarray(  # overlapping rows: the even taps see ext[par::2]; a strided
-            (rows, chunk + self._EVEN.size - 1),  # view, far cheaper to make than with
-            dtype=np.float64,  # as_strided
-            buffer=ext,
-            offset=par * step,
-            strides=(2 * chunk * step, 2 * step),
-        )
-        y = matmul_rows(frame, self._T).reshape(-1)[:m]  # single-threaded pieces
-        centre = nh // 2 + par
-        y += self._CENTRE * ext[centre : centre + 2 * m : 2]
+        # windows: pieces of ``per`` windows of each of the ``sets`` sets, at most
+        # SINGLE_THREAD_MACS per product (see matmul_rows); the window count is rounded up
+        # to whole pieces
+        windows = -(-m // chunk)
+        sets = self._SETS if windows >= self._SETS_FROM else 1
+        per_max = max(1, SINGLE_THREAD_MACS // (span * chunk))
+        pieces = -(-windows // (sets * per_max))
+        per = -(-windows // (sets * pieces))
+        windows = pieces * sets * per
+        e = np.empty(windows * chunk + span - chunk)
+        head = nh // 2  # ext[par::2] = [hist[par::2] (21 samples), x[par::2]]
+        e[:head] = hist[par::2]
+        e[head : head + m] = x[par::2]
+        e[head + m :] = 0.0
+        y = np.empty(windows * chunk)
+        step = e.strides[0]
+        shape = (pieces, sets, per)
+        strides = (sets * per * chunk * step, chunk * step, sets * chunk * step)
+        frames = np.ndarray(shape + (span,), np.float64, e, 0, strides + (step,))
+        np.matmul(frames, self._T, out=np.ndarray(shape + (chunk,), np.float64, y, 0,
+                                                  strides + (step,)))
+        y = y[:m]
+        # centre tap, ext[nh // 2 + par + 2 m]: in hist for the first few outputs
+        k = min(m, (nh // 2 - par + 1) // 2)
+        y[:k] += self._CENTRE * hist[nh // 2 + par :: 2][:k]
+        y[k:] += self._CENTRE * x[1 - par :: 2][: m - k]
         return y
 
 

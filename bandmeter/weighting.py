@@ -25,7 +25,8 @@ responses at 1 kHz, so that A(1 kHz) = C(1 kHz) = 0 dB exactly.
 Digital filters (:func:`design_sos`, :class:`WeightingFilter`) are cascades of second-order
 sections for any sample rate from 8 kHz to 192 kHz. :class:`WeightingFilter` is a streaming
 stage: its state carries across blocks, so any split of a signal into blocks gives the output of
-one pass.
+one pass. :class:`MultiWeightingFilter` weights one signal by several weightings at once (A and C
+share one block kernel, cheaper than a filter each).
 
 Notes
 -----
@@ -120,12 +121,13 @@ from __future__ import annotations
 
 import functools
 import math
+from collections.abc import Sequence
 
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import optimize
 
-from .blockfilter import SosFilter
+from .blockfilter import MultiSosFilter, SosFilter
 from .errors import SettingsError
 
 #: Frequency weightings offered (IEC 61672-1:2013).
@@ -661,11 +663,96 @@ class WeightingFilter:
         numpy.ndarray
             Weighted signal, float64, same length and unit as the input.
         """
-        if np.iscomplexobj(block):
-            raise TypeError("the weighting filter takes a real signal, got complex samples")
-        x = np.asarray(block, dtype=np.float64)
-        if x.ndim != 1:
-            raise SettingsError(f"expected a 1-D block (one channel), got shape {x.shape!r}")
+        x = _as_block(block)
         if self.weighting == "Z" or x.size == 0:
             return x.copy()
         return self._filter.process(x)  # a new array; the state is flushed of tiny values
+
+
+class MultiWeightingFilter:
+    """Several streaming frequency weightings of one signal, A and C on one block kernel.
+
+    Parameters
+    ----------
+    weightings : sequence of {"A", "C", "Z"}
+        Frequency weightings, in the order of the outputs (lower case accepted).
+    fs : float
+        Sample rate in Hz, 8000 <= fs <= 192000.
+
+    Attributes
+    ----------
+    weightings : tuple of str
+        "A", "C" or "Z", one per output.
+    fs : float
+        Sample rate, Hz.
+    sos : list of numpy.ndarray
+        Second-order sections of each weighting, from :func:`design_sos`.
+
+    Notes
+    -----
+    Each output is that of a :class:`WeightingFilter` of the same weighting (same
+    sections, same realisation, same first-use probe against ``scipy.signal.sosfilt``), to
+    rounding. The A and C filters run together on one block kernel
+    (:class:`~bandmeter.blockfilter.MultiSosFilter`; C is padded with an identity section
+    to the length of A, which leaves its output unchanged), which costs less than two
+    kernels: 0.86-0.91 of the time of two :class:`WeightingFilter` at 44.1, 48 and 96 kHz,
+    131072-sample blocks (module notes of :mod:`bandmeter.blockfilter`). Z does no
+    arithmetic (a copy).
+
+    Examples
+    --------
+    >>> fs = 48000
+    >>> tone = np.sin(2 * np.pi * 1000 * np.arange(fs) / fs)
+    >>> a, c = MultiWeightingFilter(("A", "C"), fs).process(tone)
+    >>> [round(float(np.sqrt(2.0 * np.mean(y[fs // 2 :] ** 2))), 4) for y in (a, c)]
+    [1.0, 1.0]
+    """
+
+    def __init__(self, weightings: Sequence[str], fs: float) -> None:
+        if isinstance(weightings, str):
+            raise TypeError(f"weightings must be a sequence of letters, got {weightings!r}")
+        self.weightings = tuple(_weighting_letter(w) for w in weightings)
+        if not self.weightings:
+            raise SettingsError("at least one frequency weighting is needed, got none")
+        self.fs = _check_fs(fs)
+        self.sos = [design_sos(w, self.fs) for w in self.weightings]
+        self._weighted = [i for i, w in enumerate(self.weightings) if w != "Z"]
+        self._filter = (
+            MultiSosFilter([self.sos[i] for i in self._weighted]) if self._weighted else None
+        )
+
+    def reset(self) -> None:
+        """Return every filter to rest (zero state)."""
+        if self._filter is not None:
+            self._filter.reset()
+
+    def process(self, block: ArrayLike) -> list[np.ndarray]:
+        """Weight one block of samples by every weighting.
+
+        Parameters
+        ----------
+        block : array_like
+            1-D real signal (any unit, e.g. Pa or full scale) following the previous block.
+
+        Returns
+        -------
+        list of numpy.ndarray
+            Weighted signal of each weighting, in the order of ``weightings``: new float64
+            arrays, same length and unit as the input.
+        """
+        x = _as_block(block)
+        outs = [x.copy() if w == "Z" or x.size == 0 else x[:0] for w in self.weightings]
+        if self._filter is not None and x.size:
+            for i, y in zip(self._weighted, self._filter.process(x), strict=True):
+                outs[i] = y  # new arrays; the states are flushed of tiny values
+        return outs
+
+
+def _as_block(block: ArrayLike) -> np.ndarray:
+    """A block of samples as a 1-D float64 array (no copy when it is one)."""
+    if np.iscomplexobj(block):
+        raise TypeError("the weighting filter takes a real signal, got complex samples")
+    x = np.asarray(block, dtype=np.float64)
+    if x.ndim != 1:
+        raise SettingsError(f"expected a 1-D block (one channel), got shape {x.shape!r}")
+    return x

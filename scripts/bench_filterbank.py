@@ -6,6 +6,8 @@ band-pass per band (same order and edges as the multirate bank's filters, also a
 variant) run with ``scipy.signal.sosfilt`` and carried ``zi``. The multirate bank is timed
 twice: as shipped (block state-space kernel for long stage blocks) and with the block path
 switched off (every band through scipy's sosfilt kernel, the bank's previous path).
+The A and C frequency weightings of the same signal are timed too, on one block kernel
+(``MultiWeightingFilter``, as the level engine can use them) against two ``WeightingFilter``.
 Single-threaded BLAS is forced so the figures are for one core. The repeats of all variants
 are interleaved and the fastest run of each counts, so that the ratios printed compare runs
 made under the same machine load.
@@ -33,6 +35,7 @@ from scipy import signal  # noqa: E402
 import bandmeter.filterbank as fb  # noqa: E402
 from bandmeter.bands import G  # noqa: E402
 from bandmeter.filterbank import ORDER, FractionalOctaveBank, effective_bandwidth_beta  # noqa: E402
+from bandmeter.weighting import MultiWeightingFilter, WeightingFilter  # noqa: E402
 
 
 def plain_bank(fs: float, bands: list, order: int) -> list[np.ndarray]:
@@ -84,6 +87,26 @@ def run_bank_sosfilt_only(
         fb._BLOCK_MIN_SAMPLES = saved
 
 
+def run_weightings(x: np.ndarray, block: int, fs: float, together: bool) -> float:
+    """CPU time of A and C weighting ``x`` in blocks: one kernel, or a filter each."""
+    if together:
+        pair = MultiWeightingFilter(("A", "C"), fs)
+        pair.process(x[:1])  # the first-use probe is not timed
+        t0 = time.process_time()
+        for start in range(1, x.size, block):
+            pair.process(x[start : start + block])
+        return time.process_time() - t0
+    a, c = WeightingFilter("A", fs), WeightingFilter("C", fs)
+    a.process(x[:1])
+    c.process(x[:1])
+    t0 = time.process_time()
+    for start in range(1, x.size, block):
+        blk = x[start : start + block]
+        a.process(blk)
+        c.process(blk)
+    return time.process_time() - t0
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--fs", type=float, default=48000.0, help="sample rate, Hz")
@@ -111,10 +134,15 @@ def main() -> None:
         runs[name] = lambda soss=soss: run_plain(x, block, soss)
     best = dict.fromkeys(runs, np.inf)
     means: dict[str, np.ndarray] = {}
+    weigh = {"A+C on one kernel": True, "A, C one each": False}
+    best_w = dict.fromkeys(weigh, np.inf)
     for _ in range(args.repeat):  # interleaved: every variant sees the same machine load
         for name, run in runs.items():
             elapsed, means[name] = run()
             best[name] = min(best[name], elapsed)
+        if 8000 <= fs <= 192000:
+            for name, together in weigh.items():
+                best_w[name] = min(best_w[name], run_weightings(x, block, fs, together))
     print(
         f"fs = {fs:g} Hz, 1/{args.b} octave, {len(bank.bands)} bands "
         f"({bank.bands[0].label}..{bank.bands[-1].label} Hz), {args.seconds:g} s of noise, "
@@ -128,6 +156,10 @@ def main() -> None:
         print(line)
     dev = np.max(np.abs(means["multirate bank"] / means["  sosfilt only"] - 1.0))
     print(f"band mean squares, block path vs sosfilt only: max relative difference {dev:.1e}")
+    if 8000 <= fs <= 192000:
+        t_pair, t_two = best_w["A+C on one kernel"], best_w["A, C one each"]
+        print(f"A and C weightings: one kernel {t_pair:.3f} s, a filter each {t_two:.3f} s "
+              f"(ratio {t_pair / t_two:.2f})")
 
 
 if __name__ == "__main__":

@@ -1,10 +1,17 @@
 """Benchmark and accuracy sweep of bandmeter.peak.TruePeakMeter.
 
-Speed: cost of the true-peak meter relative to one pass of a 6-section ``sosfilt`` (with
-state, in the same blocks) and to a plain ``np.max(np.abs(x))``, on 60 s at 48 kHz of pink
-noise, a 1 kHz tone and, for information, white noise, speech-like noise and steady tones of
-2, 4 and 8 kHz. Timings are the minimum of several interleaved runs (the machine may be
-shared).
+Speed: cost of the true-peak meter (ns per sample) and relative to one pass of a 6-section
+``sosfilt`` (with state, in the same blocks) and to a plain ``np.max(np.abs(x))``, on 60 s at
+48 kHz of pink noise, a 1 kHz tone and, for information, white noise, speech-like noise and
+steady tones of 2, 4 and 8 kHz. Timings are the minimum of several interleaved runs (the
+machine may be shared). With ``--recording`` the meter instead runs as in the level engine's
+analysis: on a WAV file's samples (Z) and on its C-weighted signal, in blocks of 2**17
+samples with 1 s intervals (e.g. the recording ``scripts/bench_levels.py`` makes).
+
+``--save FILE`` writes the ns-per-sample figures as JSON; ``--baseline FILE`` prints each
+signal's figure against a saved one (saved / now: above 1 is faster now). Compare only
+figures taken on the same machine in the same conditions; for changes of a few per cent,
+run the old and the new code interleaved in one process instead.
 
 Accuracy: under-read of the meter for sines above 0.8 x Nyquist (where no guarantee beyond
 the sample peak is given), steady and as 24-sample bursts, worst case over random phases.
@@ -12,11 +19,14 @@ the sample peak is given), steady and as 24-sample bursts, worst case over rando
 Usage::
 
     .venv/bin/python scripts/bench_peak.py [--seconds 60] [--repeats 5]
+    .venv/bin/python scripts/bench_peak.py --recording rec.wav --save peak.json
+    .venv/bin/python scripts/bench_peak.py --recording rec.wav --baseline peak.json
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import time
 from collections.abc import Callable
 
@@ -27,7 +37,7 @@ from bandmeter.intervals import IntervalPlan
 from bandmeter.peak import TruePeakMeter, true_peak
 
 FS = 48000
-BLOCK = 65536
+BLOCK = 1 << 17  # the level engine's analysis blocks (bandmeter.engine.ANALYSIS_BLOCK_FRAMES)
 
 
 def pink_noise(n: int, rng: np.random.Generator) -> np.ndarray:
@@ -63,8 +73,8 @@ def signals(seconds: float) -> dict[str, np.ndarray]:
     }
 
 
-def run_meter(x: np.ndarray) -> None:
-    meter = TruePeakMeter(FS, IntervalPlan(FS))  # 1 s intervals
+def run_meter(x: np.ndarray, fs: float = FS) -> None:
+    meter = TruePeakMeter(fs, IntervalPlan(int(fs)))  # 1 s intervals
     for i in range(0, x.size, BLOCK):
         meter.process(x[i : i + BLOCK])
         meter.completed()
@@ -94,7 +104,8 @@ def best_times(x: np.ndarray, runs: list[Callable[[np.ndarray], None]], repeats:
     return best
 
 
-def speed(seconds: float, repeats: int) -> None:
+def speed(seconds: float, repeats: int) -> dict[str, float]:
+    """Print the speed table; return the meter's ns per sample per signal."""
     sigs = signals(seconds)
     # the sosfilt reference runs on pink noise: on signals with digital silence (the
     # speech-like pauses) its state decays into subnormal numbers and it runs far slower
@@ -103,13 +114,46 @@ def speed(seconds: float, repeats: int) -> None:
     print(f"Speed, {seconds:g} s at {FS} Hz, blocks of {BLOCK}, min of {repeats} runs")
     print(f"one 6-section sosfilt pass (pink noise): {t_sos:.3f} s")
     print(f"(the same on the speech-like signal with digital silence: {t_sos_silence:.3f} s)")
-    print(f"{'signal':<14} {'meter s':>8} {'abs-max s':>9} {'/sosfilt':>8} {'/abs-max':>8}")
+    print(f"{'signal':<14} {'meter s':>8} {'ns/sample':>9} {'abs-max s':>9} {'/sosfilt':>8} "
+          f"{'/abs-max':>8}")
+    figures = {}
     for name, x in sigs.items():
         t_meter, t_absmax = best_times(x, [run_meter, run_absmax], repeats)
+        figures[name] = 1e9 * t_meter / x.size
         print(
-            f"{name:<14} {t_meter:8.3f} {t_absmax:9.3f} {t_meter / t_sos:8.2f} "
-            f"{t_meter / t_absmax:8.1f}"
+            f"{name:<14} {t_meter:8.3f} {figures[name]:9.2f} {t_absmax:9.3f} "
+            f"{t_meter / t_sos:8.2f} {t_meter / t_absmax:8.1f}"
         )
+    return figures
+
+
+def speed_recording(path: str, repeats: int) -> dict[str, float]:
+    """The meter as the level engine runs it, on a recording's Z and C-weighted signals."""
+    import soundfile as sf
+
+    from bandmeter.weighting import WeightingFilter
+
+    x, fs = sf.read(path, dtype="float64", always_2d=True)
+    x = np.ascontiguousarray(x[:, 0])
+    weighting = WeightingFilter("C", fs)
+    c = np.concatenate([weighting.process(x[i : i + BLOCK]) for i in range(0, x.size, BLOCK)])
+    runs = [lambda s: run_meter(s, fs)]
+    print(f"Speed on {path} ({x.size / fs:g} s at {fs:g} Hz), 1 s intervals, blocks of {BLOCK}, "
+          f"min of {repeats} runs")
+    figures = {}
+    for name, signal_ in (("Z", x), ("C", c)):
+        figures[name] = 1e9 * best_times(signal_, runs, repeats)[0] / signal_.size
+        print(f"{name}: {figures[name]:.2f} ns per sample")
+    return figures
+
+
+def compare(figures: dict[str, float], baseline: str) -> None:
+    with open(baseline) as f:
+        saved = json.load(f)
+    print(f"\nAgainst {baseline} (saved / now, above 1 is faster now)")
+    for name, now in figures.items():
+        if name in saved:
+            print(f"{name:<14} {saved[name]:7.2f} -> {now:7.2f} ns/sample: {saved[name] / now:.2f}")
 
 
 def accuracy_above_08_nyquist() -> None:
@@ -132,9 +176,20 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--seconds", type=float, default=60.0)
     parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--recording", help="time the engine's workload on this WAV file")
+    parser.add_argument("--save", help="write the ns-per-sample figures to this JSON file")
+    parser.add_argument("--baseline", help="compare with figures saved by --save")
     args = parser.parse_args()
-    speed(args.seconds, args.repeats)
-    accuracy_above_08_nyquist()
+    if args.recording:
+        figures = speed_recording(args.recording, args.repeats)
+    else:
+        figures = speed(args.seconds, args.repeats)
+        accuracy_above_08_nyquist()
+    if args.save:
+        with open(args.save, "w") as f:
+            json.dump(figures, f, indent=1)
+    if args.baseline:
+        compare(figures, args.baseline)
 
 
 if __name__ == "__main__":

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy.signal import resample_poly
+from scipy.signal import lfilter, resample_poly
 
 from bandmeter.errors import AudioError, SettingsError
 from bandmeter.intervals import IntervalPlan
@@ -499,3 +499,140 @@ def test_pruning_without_tolerance_equals_evaluating_every_sample(kind: str) -> 
         low = np.array([default[k] for k in range(everywhere.size)])
         assert np.all(db(low / everywhere) >= -DEFAULT_TOLERANCE_DB - 1e-12)
         assert np.all(low <= everywhere * (1 + 1e-15))
+
+
+# ------------------------------------------- frames processed as one batch (the fast path)
+
+
+def test_second_difference_is_np_convolve_to_the_last_bit() -> None:
+    # the meter computes D2 by slices; the thresholds of bound 1 were defined with
+    # np.convolve(x, [1, -2, 1]): the same values exactly, so the same candidates
+    from bandmeter import peak
+
+    rng = np.random.default_rng(3)
+    for scale in (1.0, 1e-30, 1e30):
+        x = rng.standard_normal(5000) * scale * 10.0 ** rng.uniform(-8, 8, 5000)
+        reference = np.convolve(x, [1.0, -2.0, 1.0], mode="valid")
+        np.testing.assert_array_equal(peak._second_difference(x), reference)
+
+
+def test_tile_maxima_and_d3_windows_match_direct_computation() -> None:
+    # the strided and flattened reductions give exactly the direct maxima (maxima are exact)
+    from bandmeter import peak
+
+    rng = np.random.default_rng(4)
+    for n_tiles in (1, 2, 7, 300):
+        rows = np.abs(rng.standard_normal((2, 16 * n_tiles)))
+        rows[:, rng.integers(0, rows.shape[1], 3)] = 0.0
+        work = peak._Work()
+        out = np.empty((2, n_tiles))
+        peak._tile_maxima(rows, work, out)
+        np.testing.assert_array_equal(out, rows.reshape(2, n_tiles, 16).max(axis=2))
+    x = rng.standard_normal(3000) * 10.0 ** rng.uniform(-5, 5, 3000)
+    pos = np.sort(rng.choice(np.arange(16, x.size - 16), 200, replace=False))
+    win = x[pos[:, None] + np.arange(-16, 17)]  # x[pos-16 .. pos+16]
+    d3 = win[:, 3:] - win[:, :-3]  # D3(k) = x[k+2] - 3x[k+1] + 3x[k] - x[k-1]
+    d3 -= 3.0 * (win[:, 2:-1] - win[:, 1:-2])
+    np.testing.assert_array_equal(peak._d3_max(peak._windows(x, pos)), np.abs(d3).max(axis=1))
+
+
+def _batch_signal(kind: str, interval: int) -> np.ndarray:
+    """Four intervals and a bit of a signal for the frame batches: each kind exercises one
+    path of the candidate selection and evaluation."""
+    n = 4 * interval + 500
+    rng = np.random.default_rng(len(kind))
+    t = np.arange(n)
+    if kind == "pink":  # pink noise (Kellet's filter), as in the benchmark
+        b = [0.049922035, -0.095993537, 0.050612699, -0.004408786]
+        a = [1, -2.494956002, 2.017265875, -0.522189400]
+        return lfilter(b, a, rng.standard_normal(n))
+    if kind == "tone_bursts":  # 8 kHz bursts, tied crests: over 64 open in each interval
+        x = 1e-3 * rng.standard_normal(n)
+        for start in range(interval // 3, n - 120, interval):
+            x[start : start + 120] += np.sin(2 * np.pi * 8000 * t[:120] / FS + 0.3)
+        return x
+    if kind == "white":  # most tiles fail: every sample tested, tile-wide |D3|
+        return rng.standard_normal(n) * np.repeat(rng.random(n // 500 + 1) + 0.1, 500)[:n]
+    if kind == "clicks":  # silence and isolated clicks: few candidates, most tiles clear
+        x = np.zeros(n)
+        x[rng.integers(20, n - 20, 40)] = rng.standard_normal(40)
+        return x
+    return _adversarial("near_nyquist_bursts", n)  # bursts at 0.98 x Nyquist in noise
+
+
+BATCH_CASES = [("tone_bursts", 12000), ("tone_bursts", 12008), ("pink", 12000), ("white", 1000),
+               ("near_nyquist_bursts", 1000), ("clicks", 1000), ("clicks", 1024)]
+
+
+@pytest.mark.parametrize(("kind", "interval"), BATCH_CASES)
+def test_frame_batches_equal_frames_of_one_interval(kind: str, interval: int) -> None:
+    # with frames of one interval each piece is processed alone; with frames of four
+    # intervals the same pieces are processed together (for intervals that are not whole
+    # tiles: tiles not aligned to the frame and short last tiles). Only the exact
+    # evaluation's grouping of rows in the matrix product differs (rounding, 1e-16): every
+    # decision is the same
+    x = _batch_signal(kind, interval)
+    plan = IntervalPlan(interval)
+    for tol in (0.0, 0.01):
+        alone = meter_peaks(x, plan, frame_samples=interval, tolerance_db=tol)
+        together = meter_peaks(x, plan, blocks=[interval // 2, 3 * interval + 1],
+                               frame_samples=4 * interval, tolerance_db=tol)
+        assert together.keys() == alone.keys()
+        for k, v in alone.items():
+            assert together[k] == pytest.approx(v, rel=1e-14, abs=0), (kind, k)
+    everywhere = _refined_everywhere(x, plan)
+    got = np.array([together[k] for k in range(everywhere.size)])
+    nz = everywhere > 0
+    assert np.all(db(got[nz] / everywhere[nz]) >= -0.01 - 1e-12)  # tolerance_db = 0.01
+    assert np.all(got[nz] <= everywhere[nz] * (1 + 1e-14))
+    assert np.all(got[~nz] == 0)
+
+
+def test_non_finite_sample_reports_the_intervals_before_it() -> None:
+    # a NaN in the third interval of a frame: the first two are final and reported, as when
+    # intervals are processed one by one
+    x = _interval_test_signal(8, n=4000)
+    x[2500] = np.nan
+    meter = TruePeakMeter(FS, IntervalPlan(1000), frame_samples=8192)
+    meter.process(x)
+    with pytest.raises(AudioError, match="interval 2"):
+        meter.finish()
+    expected = meter_peaks(x[:2000], IntervalPlan(1000), frame_samples=1000)
+    done = meter.completed()
+    assert sorted(done) == [0, 1]
+    assert done[0] == pytest.approx(expected[0], rel=1e-14)
+
+
+def test_candidate_bound_is_the_plain_formula_to_the_last_bit() -> None:
+    # bound 2 as written out in the module notes, term by term in this order; the meter
+    # computes the magnitudes in one call, the same operations on each element
+    from bandmeter import peak
+
+    b = peak._bounds()
+    rng = np.random.default_rng(5)
+    xm, x0, xp = rng.standard_normal((3, 500)) * 10.0 ** rng.uniform(-6, 6, (1, 500))
+    m3 = np.abs(rng.standard_normal(500))
+    slope = 0.5 * (xp - xm)
+    d2 = xp + xm - 2.0 * x0
+    q_max = np.abs(x0 + 0.125 * d2) + 0.5 * np.abs(slope)
+    inside = np.abs(slope) < 0.5 * np.abs(d2)
+    vertex = np.abs(x0 - 0.5 * slope**2 / np.where(inside, d2, 1.0))
+    q_max = np.where(inside, np.maximum(q_max, vertex), q_max)
+    upper = b.a3 * np.abs(x0) + b.b3 * np.abs(slope) + b.d3 * np.abs(d2) + b.c3 * m3 + q_max
+    estimate, got = peak._candidate_bound(xm, x0, xp, m3)
+    np.testing.assert_array_equal(estimate, q_max)
+    np.testing.assert_array_equal(got, upper)
+
+
+@pytest.mark.parametrize("chunk", [32, 1024])
+def test_chunks_of_the_per_sample_passes_change_nothing(chunk: int, monkeypatch) -> None:
+    # the passes over the samples run in chunks of _CHUNK samples (a few tiles here, against
+    # 2**16 by default): only maxima and element-wise operations, so exactly the same peaks
+    from bandmeter import peak
+
+    x = np.concatenate([_adversarial("near_nyquist_bursts"), _batch_signal("white", 1000)])
+    plans = (IntervalPlan(None), IntervalPlan(1000, 13), IntervalPlan(5000))
+    default = [meter_peaks(x, plan, blocks=[777, 6000]) for plan in plans]
+    monkeypatch.setattr(peak, "_CHUNK", chunk)
+    for plan, expected in zip(plans, default, strict=True):
+        assert meter_peaks(x, plan, blocks=[4097]) == expected

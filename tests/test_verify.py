@@ -30,7 +30,7 @@ from bandmeter.verify import (
     filter_breakpoints,
     run_verification,
 )
-from bandmeter.weighting import WeightingFilter
+from bandmeter.weighting import MultiWeightingFilter
 
 REQUIRED_KEYS = {"name", "expected", "measured", "lower_limit", "upper_limit", "margin",
                  "passed"}
@@ -102,17 +102,19 @@ def test_every_sample_format_for_overload_and_decoding():
 # ------------------------------------------------------------------- it can fail
 
 
-class _TwoDbHotA(WeightingFilter):
-    """An A weighting with a 2 dB gain error (a broken engine, for the test only)."""
+class _TwoDbHotA(MultiWeightingFilter):
+    """A and C weightings, the A one with a 2 dB gain error (a broken engine, for the test
+    only)."""
 
     def process(self, x):  # noqa: D401 - same signature as the stage
-        y = super().process(x)
-        return y * 10 ** (2.0 / 20.0) if self.weighting == "A" else y
+        outputs = super().process(x)
+        return [y * 10 ** (2.0 / 20.0) if w == "A" else y
+                for w, y in zip(self.weightings, outputs, strict=True)]
 
 
 def _broken_a(monkeypatch):
-    assert hasattr(WeightingFilter("A", 48000.0), "weighting")
-    monkeypatch.setattr(engine_module, "WeightingFilter", _TwoDbHotA)
+    assert MultiWeightingFilter(("A", "C"), 48000.0).weightings == ("A", "C")
+    monkeypatch.setattr(engine_module, "MultiWeightingFilter", _TwoDbHotA)
 
 
 def test_a_broken_weighting_fails_the_self_test(monkeypatch):

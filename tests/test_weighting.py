@@ -322,6 +322,52 @@ def test_filter_input_handling():
         a_filt.process(np.zeros(4, dtype=complex))
 
 
+@pytest.mark.parametrize("fs", [8000, 44100, 48000, 96000, 192000])
+def test_multi_weighting_filter_equals_one_filter_each(fs):
+    # each output is that of a WeightingFilter of its weighting, over random block splits;
+    # 1e-13 of the output as in test_block_size_invariance (rounding of the block kernel)
+    rng = np.random.default_rng(fs)
+    x = rng.standard_normal(40000) + 2.0 * np.sin(2 * np.pi * 3.0 * np.arange(40000) / fs)
+    multi = wt.MultiWeightingFilter(("C", "z", "A"), fs)
+    assert multi.weightings == ("C", "Z", "A")
+    singles = [WeightingFilter(w, fs) for w in multi.weightings]
+    cuts = sorted(set(rng.integers(0, x.size, 20).tolist()) | {0, 1, 2, 40000})
+    for a, b in zip(cuts[:-1], cuts[1:], strict=True):
+        block = x[a:b]
+        for y, filt in zip(multi.process(block), singles, strict=True):
+            ref = filt.process(block)
+            assert y.shape == ref.shape and y.dtype == np.float64
+            np.testing.assert_allclose(y, ref, rtol=0, atol=1e-13 * max(1.0, np.max(np.abs(x))))
+    multi.reset()
+    for filt in singles:
+        filt.reset()
+    for y, filt in zip(multi.process(x[:5000]), singles, strict=True):
+        np.testing.assert_allclose(y, filt.process(x[:5000]), rtol=0, atol=1e-13)
+
+
+def test_multi_weighting_filter_input_handling():
+    multi = wt.MultiWeightingFilter(["a", "c"], 48000)
+    assert multi.fs == 48000.0 and len(multi.sos) == 2
+    assert [y.shape for y in multi.process(np.zeros(0))] == [(0,), (0,)]
+    block = np.arange(5, dtype=np.float32)
+    z = wt.MultiWeightingFilter(["Z"], 48000).process(block)[0]
+    assert z.dtype == np.float64 and np.array_equal(z, block)
+    z[0] = 99.0
+    assert block[0] == 0.0  # Z returns a copy, never the caller's array
+    with pytest.raises(SettingsError, match="1-D"):
+        multi.process(np.zeros((2, 10)))
+    with pytest.raises(TypeError, match="real"):
+        multi.process(np.zeros(4, dtype=complex))
+    with pytest.raises(TypeError, match="sequence"):
+        wt.MultiWeightingFilter("AC", 48000)
+    with pytest.raises(SettingsError, match="none"):
+        wt.MultiWeightingFilter([], 48000)
+    with pytest.raises(SettingsError, match="A, C, Z"):
+        wt.MultiWeightingFilter(["A", "B"], 48000)
+    with pytest.raises(SettingsError, match="sample rate"):
+        wt.MultiWeightingFilter(["A"], 4000)
+
+
 # ----------------------------------------------------------------------------- transients
 
 # Independent analogue C weighting from the published pole frequencies (REFERENCE_VALUES.md 1.1,
