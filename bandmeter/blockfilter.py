@@ -64,9 +64,9 @@ State-space realisations
 First-use probe
     Whatever the realisation, every kernel is checked on first use against
     ``scipy.signal.sosfilt`` on a seeded noise probe that runs every part of the block path
-    (:func:`_probe_deviation` for the filter bank, :func:`_probe_cascade` for
-    :class:`SosFilter`); a cascade that deviates by more than ``_BLOCK_TOL`` (1e-11 of the
-    probe output) is filtered by sosfilt instead.
+    (:func:`_probe_deviation` for the filter bank, :func:`_probe_cascades` for
+    :class:`MultiSosFilter` and :class:`SosFilter`); a cascade that deviates by more than
+    ``_BLOCK_TOL`` (1e-11 of the probe output) is filtered by sosfilt instead.
 
 Subnormal numbers: filter states below 1e-200 are flushed (set to zero) within and after
 each block, so that digital silence does not leave the arithmetic in slow subnormal numbers.
