@@ -66,8 +66,10 @@ the only guarantee there: a short burst near Nyquist can have all its samples fa
 crest (a single crest of a sine at f half way between two samples reads ``cos(pi f / fs)`` of
 the amplitude: -1.25 dB at 8 kHz, -10.2 dB at 0.8 x Nyquist, -30 dB at 0.98 x Nyquist, fs =
 48 kHz), and a sine exactly at Nyquist can be sampled at its zero crossings. Measured under-read
-of this meter (``scripts/bench_peak.py``): steady sines up to 0.98 x Nyquist within 0.02 dB;
-24-sample bursts within 0.02 dB up to 0.95 x Nyquist and up to 1.6 dB low at 0.98 x Nyquist;
+of this meter (``scripts/bench_peak.py``, worst of 200 random phases): steady sines up to
+0.98 x Nyquist within 0.025 dB; 24-sample bursts in silence (away from the edges) within
+0.02 dB up to 0.95 x Nyquist and 1.3 dB low at 0.98 x Nyquist (their sample peaks: up to
+0.43 dB and 3.2 dB low); a burst within 16 samples of an edge reads its sample peak;
 the raw 6-sample 8 kHz cycle (content up to Nyquist) 0.074 dB below its ideal sinc
 reconstruction (and 0.01 dB above the ``resample_poly``-by-32 reading). Recordings pass an
 anti-alias filter, so content above 0.8 x Nyquist is normally small.
