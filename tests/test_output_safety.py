@@ -174,9 +174,10 @@ def test_unwritable_folder_is_refused_before_the_analysis(tmp_path, site, monkey
     assert analysed == [] and os.listdir(folder) == []
 
 
+@pytest.mark.parametrize("command", ["levels", "verify"])
 @pytest.mark.parametrize("step", ["mkstemp", "replace"])
-def test_permission_denied_while_writing(tmp_path, site, monkeypatch, step):
-    out = tmp_path / "levels.csv"
+def test_permission_denied_while_writing(tmp_path, site, monkeypatch, step, command):
+    out = tmp_path / f"{command}.csv"
     out.write_text("earlier result\n")
     denied = PermissionError(errno.EACCES, os.strerror(errno.EACCES))
     if step == "mkstemp":
@@ -187,11 +188,14 @@ def test_permission_denied_while_writing(tmp_path, site, monkeypatch, step):
         def fail(src, dst, *args, **kwargs):
             raise denied
         monkeypatch.setattr(outputs.os, "replace", fail)
-    result = run("levels", site, "--dbfs", "-o", out, "--force")
+    if command == "levels":
+        result = run("levels", site, "--dbfs", "-o", out, "--force")
+    else:
+        result = run("verify", "--group", "decay", "-o", out, "--force")
     assert_one_line_error(result, str(out), "Permission denied", "choose an output folder",
                           "no earlier file was changed")
     assert out.read_text() == "earlier result\n"
-    assert sorted(os.listdir(tmp_path)) == ["levels.csv", "site.wav"]
+    assert sorted(os.listdir(tmp_path)) == sorted([out.name, "site.wav"])
 
 
 def test_batch_output_folder_cannot_be_created(tmp_path, site, monkeypatch):
@@ -209,11 +213,14 @@ def test_batch_output_folder_cannot_be_created(tmp_path, site, monkeypatch):
 # -- full disk ----------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("command", ["levels", "calibrate"])
+@pytest.mark.parametrize("command", ["levels", "calibrate", "verify"])
 def test_disk_full_keeps_the_earlier_file(tmp_path, site, monkeypatch, command):
     if command == "levels":
         out = tmp_path / "levels.csv"
         args = ["levels", site, "--dbfs", "--interval", "0.5s", "-o", out, "--force"]
+    elif command == "verify":
+        out = tmp_path / "verify.csv"
+        args = ["verify", "--group", "decay", "-o", out, "--force"]
     else:
         tone = tmp_path / "cal.wav"
         x = sine(FS, 1000.0, 4.0, 0.05) * fade(4 * FS, FS, 0.3, 0.3)
