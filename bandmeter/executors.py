@@ -8,6 +8,7 @@ worker dies (killed, out of memory) comes back as a failed outcome; the others g
 from __future__ import annotations
 
 import multiprocessing
+import os
 from collections.abc import Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
@@ -65,15 +66,32 @@ def _dask_worker_config() -> dict[str, dict[str, str]]:
     return {_DASK_ENVIRON_KEY: {**current, **DASK_WORKER_ENVIRON}}
 
 
+def _restore_environ(saved: dict[str, str]) -> None:
+    """Put this process's environment back to ``saved`` (a copy of ``os.environ``).
+
+    Dask's nanny writes the workers' environment (``pre-spawn-environ``) into the
+    environment of the process that starts them, before every spawn; without this the
+    caller of a ``--dask local`` batch would keep those settings, and hand them on to any
+    process it starts later.
+    """
+    for key in [k for k in os.environ if k not in saved]:
+        del os.environ[key]
+    for key, value in saved.items():
+        if os.environ.get(key) != value:
+            os.environ[key] = value
+
+
 def run_dask(jobs: Sequence[Job], address: str, workers: int) -> Iterator[Outcome]:
     """Jobs on Dask distributed: ``address`` "local" starts a LocalCluster of ``workers``
-    single-threaded processes; otherwise it is a scheduler address (``tcp://host:8786``)."""
+    single-threaded processes; otherwise it is a scheduler address (``tcp://host:8786``).
+    The caller's environment is left as it was (see :func:`_restore_environ`)."""
     try:
         from distributed import Client, LocalCluster
         from distributed import as_completed as dask_completed
     except ImportError:  # pragma: no cover - a dependency
         raise SettingsError("--dask needs the 'distributed' package") from None
     cluster = None
+    saved = dict(os.environ)
     try:
         if address == "local":
             import dask
@@ -88,6 +106,8 @@ def run_dask(jobs: Sequence[Job], address: str, workers: int) -> Iterator[Outcom
         if cluster is not None:
             cluster.close()
         raise SettingsError(f"cannot reach the Dask scheduler at {address} ({exc})") from None
+    finally:
+        _restore_environ(saved)
     try:
         futures = {client.submit(analyse_job, job, pure=False, key=f"bandmeter-{job.id}"): job
                    for job in jobs}
@@ -100,6 +120,7 @@ def run_dask(jobs: Sequence[Job], address: str, workers: int) -> Iterator[Outcom
         client.close()
         if cluster is not None:
             cluster.close()
+        _restore_environ(saved)  # a worker restarted by its nanny wrote it again
 
 
 def run_jobs(jobs: Sequence[Job], workers: int = 1, dask: str | None = None

@@ -289,7 +289,19 @@ def test_a_gap_breaks_the_join(tmp_path):
     assert report.total == 2
 
 
-def test_existing_dask_scheduler_by_address(tmp_path, survey):
+@pytest.fixture()
+def restored_environ():
+    """This process's environment put back after the test: the nanny of a cluster the test
+    starts itself writes its workers' environment into it (which would then win over the
+    engine's amount in later local clusters)."""
+    from bandmeter.executors import _restore_environ
+
+    saved = dict(os.environ)
+    yield
+    _restore_environ(saved)
+
+
+def test_existing_dask_scheduler_by_address(tmp_path, survey, restored_environ):
     # an already running cluster (here started by the test) reached by its tcp:// address
     from distributed import LocalCluster
 
@@ -412,7 +424,20 @@ def test_events_over_a_batch_folder(tmp_path):
     assert refused.exit_code == 1 and "batch folder" in refused.stderr
 
 
-def test_dask_local_workers_keep_freed_memory():
+def test_dask_local_batch_leaves_the_callers_environment_alone(monkeypatch):
+    # Dask's nanny writes the workers' environment into the starting process's own
+    # (distributed's Nanny, before every spawn); run_dask puts it back afterwards
+    from bandmeter.executors import DASK_WORKER_ENVIRON, run_dask
+
+    for key in DASK_WORKER_ENVIRON:
+        monkeypatch.delenv(key, raising=False)
+    monkeypatch.setenv("BANDMETER_TEST_MARKER", "kept")
+    before = dict(os.environ)
+    assert list(run_dask([], "local", 1)) == []
+    assert dict(os.environ) == before
+
+
+def test_dask_local_workers_keep_freed_memory(monkeypatch, restored_environ):
     # Dask's nanny gives its workers MALLOC_TRIM_THRESHOLD_=65536 (its default
     # configuration); --dask local gives them the engine's amount instead, read here from
     # a worker process's own environment
@@ -420,8 +445,10 @@ def test_dask_local_workers_keep_freed_memory():
     from distributed import Client, LocalCluster
 
     from bandmeter.engine import MALLOC_KEEP_BYTES
-    from bandmeter.executors import _dask_worker_config
+    from bandmeter.executors import DASK_WORKER_ENVIRON, _dask_worker_config
 
+    for key in DASK_WORKER_ENVIRON:  # a value in this process's environment would win
+        monkeypatch.delenv(key, raising=False)
     with dask.config.set(_dask_worker_config()):
         cluster = LocalCluster(n_workers=1, threads_per_worker=1, processes=True,
                                dashboard_address=None)
