@@ -574,11 +574,6 @@ def _probe_cascades(kernel: _BlockKernel, soss: Sequence[np.ndarray]) -> np.ndar
     return dev
 
 
-def _probe_cascade(kernel: _BlockKernel, sos: np.ndarray) -> float:
-    """:func:`_probe_cascades` of a one-cascade ``kernel``."""
-    return float(_probe_cascades(kernel, [sos])[0])
-
-
 def _pad_sections(sos: np.ndarray, sections: int) -> np.ndarray:
     """``sos`` with identity sections ``[1, 0, 0, 1, 0, 0]`` appended up to ``sections`` rows.
 
@@ -656,8 +651,7 @@ class MultiSosFilter:
     def reset(self) -> None:
         """Return every filter to rest (zero state)."""
         n = 2 * max(sos.shape[0] for sos in self.soss)
-        count = len(self.soss) if self.block_path is None else len(self._members)
-        self._state = np.zeros((count, n))  # block kernel, its realisation
+        self._state = np.zeros((len(self._members), n))  # block kernel, its realisation
         self._zi = [np.zeros((sos.shape[0], 2)) for sos in self.soss]  # sosfilt
 
     def _choose_path(self) -> None:
