@@ -99,6 +99,10 @@ BAND_WEIGHTINGS = ("Z", "A", "C")
 BAND_NAMES = {"octave": 1, "1": 1, "third": 3, "3": 3, "6": 6, "12": 12, "24": 24}
 
 
+#: The filter bank's decimated stages run on at least this many samples at a time (fewer,
+#: cheaper calls; :class:`bandmeter.filterbank.FractionalOctaveBank`, ``hold_samples``).
+BANK_HOLD_SAMPLES = 32768
+
 #: Heap memory glibc may keep after frees instead of returning it to the system, bytes
 #: (see :func:`keep_freed_memory`).
 MALLOC_KEEP_BYTES = 64 << 20
@@ -423,7 +427,8 @@ class LevelEngine:
             from .filterbank import FractionalOctaveBank
 
             self.bank = FractionalOctaveBank(
-                self.fs, settings.bands, settings.fmin_hz, settings.fmax_hz
+                self.fs, settings.bands, settings.fmin_hz, settings.fmax_hz,
+                hold_samples=BANK_HOLD_SAMPLES,
             )
             if self.bank.dropped:
                 names = ", ".join(b.label for b in self.bank.dropped)
@@ -717,7 +722,8 @@ class LevelEngine:
             state.position += m
 
     def _flush_bands(self) -> None:
-        """Run the bank on zeros after the end so the delayed band energy is counted."""
+        """Run the bank on zeros after the end so the delayed band energy is counted, then
+        drain its held stages."""
         if self.bank is None or self.position == 0:
             return
         longest = max(state.shift for state in self.band_states)
@@ -729,6 +735,7 @@ class LevelEngine:
             chunk = zeros[: min(n, zeros.size)]
             self._process_bands(self.bank.process(chunk), limit=self.position)
             n -= chunk.size
+        self._process_bands(self.bank.drain(), limit=self.position)
 
     def finish(self) -> None:
         """Flush the detectors at the end of the recording."""
