@@ -15,8 +15,9 @@ length, and the results do not depend on the block length. Per block it
    F-weighted maximum) per interval at the band's own sample rate.
 
 Speed: the frequency weightings run on the block state-space kernel
-(:mod:`bandmeter.blockfilter`), the time weightings by frames of 32 samples
-(:mod:`bandmeter.timeweight`; the I detector's maxima without its per-sample output), the
+(:mod:`bandmeter.blockfilter`), the time weightings F, S and I together by frames of 8
+samples (:class:`bandmeter.timeweight.TimeWeightingSet`; the I detector's maxima without its
+per-sample output), the
 true peaks with a per-tile pre-test (:mod:`bandmeter.peak`); every sample's F level is counted
 over the bins its interval occupies, and band energy is summed per interval piece by dot
 products. Blocks are 2**17 samples by default (:data:`ANALYSIS_BLOCK_FRAMES`), and on glibc
@@ -60,7 +61,7 @@ from .results import (
     IntervalSeries,
     LevelResult,
 )
-from .timeweight import ExponentialAverager, TimeWeighting
+from .timeweight import ExponentialAverager, TimeWeighting, TimeWeightingSet
 from .weighting import MultiWeightingFilter, WeightingFilter
 
 #: Default samples per block of the analysis, 2**17 (2.7 s at 48 kHz): long blocks keep the
@@ -475,11 +476,16 @@ class LevelEngine:
         pre = np.asarray(prefix, dtype=np.float64)
         a = WeightingFilter("A", self.fs).process(pre)
         a2 = a[min(self.settle_samples, len(a)):] ** 2
+        seeds = {}
         for name in ("F", "S", "I"):
             window_s = min(TIME_CONSTANTS_S[name], SEED_WINDOW_S)
             m = max(1, min(len(a2), int(round(window_s * self.fs))))
-            seed = float(np.mean(a2[:m])) if len(a2) else 0.0
-            self.time_weightings[name] = TimeWeighting(self.fs, name, initial_mean_square=seed)
+            seeds[name] = float(np.mean(a2[:m])) if len(a2) else 0.0
+        # F and S per sample, I only as maxima per interval, from one pass over the block
+        self._time_weighting_set = TimeWeightingSet(
+            self.fs, ("F", "S", "I"), initial_mean_square=seeds, maxima_only=("I",)
+        )
+        self.time_weightings = self._time_weighting_set.members
         self._primed = True
 
     def _segments(self, start: int, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -532,9 +538,8 @@ class LevelEngine:
         """Time-weighted extremes, level distribution and peaks of settled samples."""
         acc = self.acc
         seg, ids = self._segments(start, len(x))
-        f = self.time_weightings["F"].process(a2)
-        s = self.time_weightings["S"].process(a2)
-        max_i = self.time_weightings["I"].segment_maxima(a2, seg)
+        full, maxima = self._time_weighting_set.process(a2, seg)
+        f, s, max_i = full["F"], full["S"], maxima["I"]
         acc["max_f"][ids] = np.maximum(acc["max_f"][ids], np.maximum.reduceat(f, seg))
         acc["min_f"][ids] = np.minimum(acc["min_f"][ids], np.minimum.reduceat(f, seg))
         acc["max_s"][ids] = np.maximum(acc["max_s"][ids], np.maximum.reduceat(s, seg))

@@ -51,11 +51,29 @@ The I detector's peak hold needs no per-sample output in the engine, only its ma
 interval: :meth:`TimeWeighting.segment_maxima` reads it as ``max(max x, d * held)`` over the
 segment (``held`` the value before it) and advances the hold with one product per sample,
 exactly (module notes of :class:`PeakDetector`).
+
+:class:`TimeWeightingSet` runs several weightings of one signal (the engine's F, S and I) and
+uses a two-level form of the same exact sums, about 1.7 times as fast per averager (blocks of
+2**17 samples, one thread; 1.1-1.4 ns per sample on the development machine): frames of
+``m = 8`` samples (one product with the 8 x 8 Toeplitz matrix, 8 multiply-adds per sample
+instead of 32), and the frame recurrence ``Y_k = a**8 Y_(k-1) + e_k`` (``e_k`` the sum part of
+frame k's last output) solved the same way over groups of 16 frames, with the 16 x 16 Toeplitz
+matrix of the powers ``a**(8 j)``; only the groups' recurrence (pole ``a**128``, 1/128 of the
+samples) runs through lfilter. The two rank-1 updates (``a**(r+1) Y`` per frame, the same per
+group) are matrix products of inner dimension 1 added in place (BLAS GEMM with beta = 1), and
+every power of ``a`` is taken from ``a`` itself, so the coefficients are correctly rounded.
+All terms stay positive, so the outputs agree with the recursion as closely as the 32-sample
+frames do (both within about 4e-14 relative of lfilter over 8-192 kHz and F, S, I; the tests
+require 1e-13). Only the shorter sums group differently, so the set and the single objects
+differ by rounding only. The set also checks the input once, and forms the I averager's output in a
+reused work array that is never returned.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping, Sequence
+from typing import NamedTuple
 
 import numpy as np
 from scipy.linalg import blas
@@ -88,6 +106,13 @@ _BLOCK_MIN_SAMPLES = 8 * _FRAME
 #: Frames per matrix product: small products stay single-threaded in OpenBLAS (which
 #: threads GEMM above 2**18 multiply-adds and GER above 9216 elements) and in the caches.
 _RUN_FRAMES = 256
+#: Samples per frame, and frames per group, of the two-level form (:class:`TimeWeightingSet`).
+_GROUP_FRAME = 8
+_GROUP_FRAMES = 16
+#: Largest matrix product (multiply-adds) that OpenBLAS runs on the calling thread.
+_ONE_THREAD_MADDS = 1 << 18
+#: Longest block whose work array a :class:`TimeWeightingSet` keeps between blocks (samples).
+_KEEP_WORK_SAMPLES = 1 << 18
 
 
 def _check_fs(fs: float) -> float:
@@ -128,6 +153,97 @@ def _squared_block(squared_block: np.ndarray) -> np.ndarray:
             f"squared samples must be >= 0 and not NaN, got minimum {float(x.min())!r}"
         )
     return x
+
+
+def _segment_edges(starts: Sequence[int] | np.ndarray, size: int) -> list[int]:
+    """Segment edges ``[*starts, size]``, checked: increasing from 0, inside the block."""
+    edges = [int(v) for v in starts] + [size]
+    if edges[0] != 0 or any(b <= a for a, b in zip(edges[:-1], edges[1:], strict=True)):
+        raise SettingsError(
+            f"segment starts must increase from 0 within the block, got {list(starts)!r}"
+        )
+    return edges
+
+
+def _toeplitz(a: float, m: int, gain: float, step: int) -> np.ndarray:
+    """``(i, r) -> gain * a**(step * (r - i))`` for ``r >= i``, else 0 (``m x m``)."""
+    k = np.arange(m)
+    lag = k[None, :] - k[:, None]
+    power = a ** (step * np.maximum(lag, 0)).astype(np.float64)
+    return np.where(lag >= 0, gain * power, 0.0)
+
+
+def _products(rows: np.ndarray, matrix: np.ndarray, out: np.ndarray) -> None:
+    """``out = rows @ matrix`` by products small enough for one thread (C-contiguous)."""
+    k, n = matrix.shape
+    run = max(1, _ONE_THREAD_MADDS // (k * n))
+    full = rows.shape[0] // run * run
+    if full:
+        np.matmul(rows[:full].reshape(-1, run, k), matrix, out=out[:full].reshape(-1, run, n))
+    if full < rows.shape[0]:
+        np.matmul(rows[full:], matrix, out=out[full:])
+
+
+def _add_outer(out: np.ndarray, row: np.ndarray, column: np.ndarray) -> None:
+    """``out[i, r] += row[i] * column[r, 0]`` in place (``out`` C-contiguous ``(len(row), m)``).
+
+    A matrix product of inner dimension 1 added with beta = 1 (one pass over ``out``); faster
+    than BLAS GER on these short rows.
+    """
+    step = max(1, _ONE_THREAD_MADDS // column.shape[0])
+    for k in range(0, row.size, step):
+        part = out[k : k + step]
+        done = blas.dgemm(1.0, column, row[None, k : k + step], beta=1.0, c=part.T,
+                          overwrite_c=True)
+        if not np.may_share_memory(done, part):  # pragma: no cover - BLAS made a copy
+            part[...] = done.T
+
+
+class _GroupedFrames:
+    """Exact outputs of ``y[n] = a y[n-1] + (1 - a) x[n]`` by frames of 8 samples and groups
+    of 16 frames (module notes, :class:`TimeWeightingSet`)."""
+
+    def __init__(self, a: float) -> None:
+        m, g = _GROUP_FRAME, _GROUP_FRAMES
+        self.toeplitz = _toeplitz(a, m, 1.0 - a, 1)  # (i, r): (1 - a) a**(r - i)
+        self.carry = np.asfortranarray(a ** np.arange(1.0, m + 1.0)[:, None])  # a**(r+1)
+        self.group_toeplitz = _toeplitz(a, g, 1.0, m)  # (j, s): a**(m (s - j))
+        self.group_carry = np.asfortranarray(a ** (m * np.arange(1.0, g + 1.0))[:, None])
+        self.group_den = np.array([1.0, -(a ** (m * g))])
+
+    def outputs(self, x: np.ndarray, state: float, out: np.ndarray) -> np.ndarray:
+        """Outputs of a block (at least one frame) from the output ``state`` before it."""
+        m, g = _GROUP_FRAME, _GROUP_FRAMES
+        frames, rest = divmod(x.size, m)
+        whole = out[: frames * m].reshape(frames, m)
+        _products(x[: frames * m].reshape(frames, m), self.toeplitz, whole)
+        ends = np.empty(frames)  # sum part of each frame's last output
+        np.copyto(ends, whole[:, -1])
+        # frame-end outputs Y_k = a**m Y_(k-1) + ends[k] after Y_(-1) = state, by groups
+        frame_out = np.empty(frames + 1)
+        frame_out[0] = state
+        groups, spare = divmod(frames, g)
+        last = state
+        if groups:
+            grid = frame_out[1 : 1 + groups * g].reshape(groups, g)
+            _products(ends[: groups * g].reshape(groups, g), self.group_toeplitz, grid)
+            group_out, _ = lfilter([1.0], self.group_den, grid[:, -1],
+                                   zi=[-self.group_den[1] * state])
+            before = np.empty(groups)
+            before[0] = state
+            before[1:] = group_out[:-1]
+            _add_outer(grid, before, self.group_carry)
+            last = float(group_out[-1])
+        if spare:
+            tail = ends[groups * g :] @ self.group_toeplitz[:spare, :spare]
+            tail += last * self.group_carry[:spare, 0]
+            frame_out[1 + groups * g :] = tail
+        _add_outer(whole, frame_out[:frames], self.carry)
+        if rest:
+            tail = x[frames * m :] @ self.toeplitz[:rest, :rest]
+            tail += float(frame_out[frames]) * self.carry[:rest, 0]
+            out[frames * m :] = tail
+        return out
 
 
 class ExponentialAverager:
@@ -174,12 +290,19 @@ class ExponentialAverager:
         self._toeplitz = np.where(lag >= 0, (1.0 - self.a) * power, 0.0)  # (i, r)
         self._carry = self.a ** (k + 1.0)  # a**(r+1): weight of the output before the frame
         self._frame_den = np.array([1.0, -(self.a**_FRAME)])
+        self._grouped: _GroupedFrames | None = None  # made on first use (TimeWeightingSet)
         self.reset()
 
     def reset(self) -> None:
         """Return to the state given at construction (``initial_mean_square``)."""
         self._last = self.initial_mean_square
         self._state = self._last  # output before the next sample (flushed when tiny)
+
+    def _keep(self, last: float) -> None:
+        """Carry the last output to the next block."""
+        self._last = last
+        # keep the state out of slow subnormal numbers
+        self._state = last if self.a * last >= STATE_FLOOR else 0.0
 
     @property
     def mean_square(self) -> float:
@@ -206,9 +329,22 @@ class ExponentialAverager:
             y, _ = lfilter(self._b, self._den, x, zi=[self.a * self._state])
         else:
             y = self._frames(x)
-        self._last = float(y[-1])
-        # keep the state out of slow subnormal numbers
-        self._state = self._last if self.a * self._last >= STATE_FLOOR else 0.0
+        self._keep(float(y[-1]))
+        return y
+
+    def _process_grouped(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """:meth:`process` of a checked block into ``out[:x.size]``, long blocks by the
+        two-level form (module notes, :class:`TimeWeightingSet`); returns that view."""
+        y = out if out.size == x.size else out[: x.size]
+        if x.size == 0:
+            return y
+        if x.size < _BLOCK_MIN_SAMPLES:
+            y[...], _ = lfilter(self._b, self._den, x, zi=[self.a * self._state])
+        else:
+            if self._grouped is None:
+                self._grouped = _GroupedFrames(self.a)
+            self._grouped.outputs(x, self._state, y)
+        self._keep(float(y[-1]))
         return y
 
     def _frames(self, x: np.ndarray) -> np.ndarray:
@@ -281,6 +417,10 @@ class PeakDetector:
         k = np.arange(_DETECTOR_CHUNK, dtype=np.float64)
         self._decay = np.exp(k * self.log_d)  # d^k
         self._grow = np.exp(-k * self.log_d)  # d^-k
+        self._decay_reversed = np.ascontiguousarray(self._decay[::-1])  # d^(2^14 - 1 - k)
+        # segment_maxima skips what cannot be the largest, which needs a table that never rises
+        self._monotone = bool(np.all(np.diff(self._decay) <= 0.0))
+        self._work = np.empty(_DETECTOR_CHUNK)
         self._d = math.exp(self.log_d)
         self.reset()
 
@@ -306,7 +446,9 @@ class PeakDetector:
         numpy.ndarray
             Held values, same length and units as the input.
         """
-        x = _squared_block(squared_block)
+        return self._process_checked(_squared_block(squared_block))
+
+    def _process_checked(self, x: np.ndarray) -> np.ndarray:
         out = np.empty_like(x)
         for start in range(0, x.size, _DETECTOR_CHUNK):
             stop = min(start + _DETECTOR_CHUNK, x.size)
@@ -322,7 +464,10 @@ class PeakDetector:
         value is ``max(h d, max x)``; the hold at the segment's end is
         ``max(h d**L, max_k x[k] d**(L-1-k))`` (L samples; computed by runs of at most 2**14
         samples, like :meth:`process`). One product and two maxima per sample, against a
-        cumulative maximum and four passes for the full output.
+        cumulative maximum and four passes for the full output. Only the samples from the
+        largest of each run on need the product: an earlier sample is no larger and is
+        weighted by a smaller power of ``d``, so its product (rounded the same way) is no
+        larger either; the result is the same to the last bit.
 
         Parameters
         ----------
@@ -337,21 +482,34 @@ class PeakDetector:
             Largest held value of each segment, units^2.
         """
         x = _squared_block(squared_block)
-        edges = [int(v) for v in starts] + [x.size]
-        if edges[0] != 0 or any(b <= a for a, b in zip(edges[:-1], edges[1:], strict=True)):
-            raise SettingsError(
-                f"segment starts must increase from 0 within the block, got {list(starts)!r}"
-            )
+        return self._segment_maxima(x, _segment_edges(starts, x.size))
+
+    def _segment_maxima(self, x: np.ndarray, edges: list[int]) -> np.ndarray:
+        """:meth:`segment_maxima` of a checked block, with checked edges ``[*starts, size]``."""
         out = np.empty(len(edges) - 1)
+        size = _DETECTOR_CHUNK
         for i in range(out.size):
             part = x[edges[i] : edges[i + 1]]
-            out[i] = max(float(part.max()), self._held * self._d)
-            for start in range(0, part.size, _DETECTOR_CHUNK):
-                run = part[start : start + _DETECTOR_CHUNK]
+            start_hold = self._held * self._d
+            top = 0.0
+            for start in range(0, part.size, size):
+                run = part[start : start + size]
                 n = run.size
-                tail = float(np.max(run * self._decay[n - 1 :: -1]))  # x[k] d**(n-1-k)
+                if self._monotone:
+                    k = int(np.argmax(run))
+                    peak = float(run[k])
+                else:  # pragma: no cover - a table rounded out of order: no skipping
+                    k, peak = 0, float(run.max())
+                top = max(top, peak)
+                if peak > 0.0:  # x[j] d**(n-1-j) from the largest on (docstring)
+                    weighted = np.multiply(run[k:], self._decay_reversed[size - n + k :],
+                                           out=self._work[: n - k])
+                    tail = float(weighted.max())
+                else:  # all zero
+                    tail = 0.0
                 held = max(self._held * self._d * self._decay[n - 1], tail)
                 self._held = held if held >= STATE_FLOOR else 0.0
+            out[i] = max(top, start_hold)
         return out
 
     def _run(self, x: np.ndarray) -> np.ndarray:
@@ -451,6 +609,175 @@ class TimeWeighting:
             One maximum per segment, units^2 of the input.
         """
         y = self._averager.process(squared_block)
-        if self._detector is not None:
-            return self._detector.segment_maxima(y, starts)
+        if self._detector is not None:  # y is an averager output: >= 0, no need to check
+            return self._detector._segment_maxima(y, _segment_edges(starts, y.size))
         return np.maximum.reduceat(y, np.asarray(starts, dtype=np.intp))
+
+
+class TimeWeightedBlock(NamedTuple):
+    """What :meth:`TimeWeightingSet.process` returns for one block (unpacks as a pair)."""
+
+    #: Per-sample time-weighted mean square of each weighting not read as maxima only:
+    #: contiguous 1-D float64 arrays of the block's length, units^2 of the input.
+    full: dict[str, np.ndarray]
+    #: Largest time-weighted mean square per segment of each maxima-only weighting, units^2.
+    maxima: dict[str, np.ndarray]
+
+
+class TimeWeightingSet:
+    """Several time weightings (F, S, I) of one squared signal, computed together.
+
+    Gives what separate :class:`TimeWeighting` objects give (their :meth:`~TimeWeighting.process`
+    and :meth:`~TimeWeighting.segment_maxima`), with the same states carried across blocks, in
+    about 60 % of the time (the engine's F and S outputs and I maxima on blocks of 2**17
+    samples: 1.6 times as fast): the input is checked once, blocks of at least 256 samples
+    take the two-level block form (module notes), and a maxima-only weighting's per-sample
+    values go to a reused work array. Shorter blocks take lfilter, as the single objects do
+    (from the same state, the same to the bit). Every output is within a few tens of units
+    in the last place of the sample-by-sample recursion and of the single objects (1e-13
+    relative in the tests, typically below 4e-14).
+
+    Parameters
+    ----------
+    fs : float
+        Sample rate in Hz.
+    weightings : sequence of {"F", "S", "I"}, optional
+        The time weightings, each at most once; default all three.
+    initial_mean_square : float or mapping of str to float, optional
+        Mean square (input units^2) each weighting starts from, as for
+        :class:`TimeWeighting`: one value for all, or one per weighting (a mapping with a
+        value for every weighting of the set). Default 0 (silence).
+    maxima_only : sequence of str, optional
+        Weightings of the set whose per-sample output is not needed, only its largest value
+        per segment (default ``("I",)``); the others return their full output.
+
+    Examples
+    --------
+    The engine's use: F and S per sample, I's maximum per interval piece.
+
+    >>> import numpy as np
+    >>> fs = 48000
+    >>> rng = np.random.default_rng(0)
+    >>> a2 = rng.standard_normal(2 * fs) ** 2  # squared signal, mean square 1
+    >>> tw = TimeWeightingSet(fs, ("F", "S", "I"), initial_mean_square={"F": 1, "S": 1, "I": 1})
+    >>> full, maxima = tw.process(a2, starts=np.array([0, fs]))
+    >>> full["F"].shape, full["S"].shape, maxima["I"].shape
+    ((96000,), (96000,), (2,))
+    >>> one = TimeWeighting(fs, "S", initial_mean_square=1.0).process(a2)
+    >>> bool(np.allclose(full["S"], one, rtol=1e-13, atol=0))
+    True
+    """
+
+    def __init__(
+        self,
+        fs: float,
+        weightings: Sequence[str] = ("F", "S", "I"),
+        initial_mean_square: float | Mapping[str, float] = 0.0,
+        maxima_only: Sequence[str] = ("I",),
+    ) -> None:
+        names = tuple(weightings)
+        for name in names:
+            if name not in TIME_CONSTANTS_S:
+                raise SettingsError(f"time weighting must be 'F', 'S' or 'I', got {name!r}")
+        if not names or len(set(names)) != len(names):
+            raise SettingsError(f"time weightings must be given once each, got {names!r}")
+        maxima = tuple(maxima_only)
+        if any(name not in names for name in maxima):
+            raise SettingsError(
+                f"maxima_only {maxima!r} must name weightings of the set {names!r}"
+            )
+        if isinstance(initial_mean_square, Mapping):
+            missing = [name for name in names if name not in initial_mean_square]
+            if missing:
+                raise SettingsError(f"initial_mean_square has no value for {missing!r}")
+            seeds = {name: initial_mean_square[name] for name in names}
+        else:
+            seeds = dict.fromkeys(names, initial_mean_square)
+        self.weightings = names
+        self.maxima_only = tuple(name for name in names if name in maxima)
+        self._members = {name: TimeWeighting(fs, name, seeds[name]) for name in names}
+        self.fs = self._members[names[0]].fs
+        self._work = np.empty(0)  # per-sample values of the maxima-only weightings
+
+    @property
+    def members(self) -> dict[str, TimeWeighting]:
+        """The single :class:`TimeWeighting` of each weighting; they hold the set's state.
+
+        A block given to a member advances that weighting alone (by its own 32-sample
+        frames, to the same accuracy), and the set goes on from the state it leaves; the
+        engine's reference computations can read them like separate objects.
+        """
+        return dict(self._members)
+
+    def reset(self) -> None:
+        """Return every weighting to the state given at construction."""
+        for member in self._members.values():
+            member.reset()
+
+    @property
+    def mean_square(self) -> dict[str, float]:
+        """Time-weighted mean square of each weighting at the last processed sample, units^2
+        of the input (the carried state; the I detector's held value for I)."""
+        return {name: member.mean_square for name, member in self._members.items()}
+
+    def process(
+        self, squared_block: np.ndarray, starts: Sequence[int] | np.ndarray | None = None
+    ) -> TimeWeightedBlock:
+        """Time-weight the next block of the squared signal with every weighting of the set.
+
+        Parameters
+        ----------
+        squared_block : numpy.ndarray
+            1-D squared (frequency-weighted) signal (>= 0), units^2 (e.g. Pa^2 or full
+            scale^2), following the previous block.
+        starts : sequence of int, optional
+            Increasing segment starts within the block, the first 0 (as for
+            ``np.maximum.reduceat``), for the maxima-only weightings (ignored without any);
+            default one segment, the whole block (none for an empty block).
+
+        Returns
+        -------
+        TimeWeightedBlock
+            ``(full, maxima)``: ``full[name]`` the time-weighted mean square of each sample
+            (a new contiguous float64 array, units^2 of the input; the level in dB is
+            ``10 lg(mean_square / p0^2)``) for each weighting not in ``maxima_only``, as
+            :meth:`TimeWeighting.process` gives it; ``maxima[name]`` the largest
+            time-weighted mean square of each segment for each maxima-only weighting, as
+            :meth:`TimeWeighting.segment_maxima` gives it.
+
+        Raises
+        ------
+        SettingsError
+            For a block that is not 1-D or has a negative or NaN value, or starts that do not
+            increase from 0 within the block; nothing is advanced then.
+        """
+        x = _squared_block(squared_block)
+        edges: list[int] = []
+        if self.maxima_only:
+            if starts is None:
+                starts = [0] if x.size else []
+            edges = _segment_edges(starts, x.size)
+        full: dict[str, np.ndarray] = {}
+        maxima: dict[str, np.ndarray] = {}
+        for name, member in self._members.items():
+            averager, detector = member._averager, member._detector
+            if name not in self.maxima_only:
+                y = averager._process_grouped(x, np.empty(x.size))
+                full[name] = y if detector is None else detector._process_checked(y)
+                continue
+            y = averager._process_grouped(x, self._work_array(x.size))
+            if detector is not None:
+                maxima[name] = detector._segment_maxima(y, edges)
+            elif len(edges) > 1:
+                maxima[name] = np.maximum.reduceat(y, np.asarray(edges[:-1], dtype=np.intp))
+            else:
+                maxima[name] = np.empty(0)
+        return TimeWeightedBlock(full, maxima)
+
+    def _work_array(self, size: int) -> np.ndarray:
+        if self._work.size >= size:
+            return self._work
+        work = np.empty(size)
+        if size <= _KEEP_WORK_SAMPLES:  # a very long block's work array is not kept
+            self._work = work
+        return work

@@ -13,6 +13,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from bandmeter import timeweight
 from bandmeter.errors import SettingsError
 from bandmeter.timeweight import (
     TAU_FAST_S,
@@ -22,6 +23,7 @@ from bandmeter.timeweight import (
     ExponentialAverager,
     PeakDetector,
     TimeWeighting,
+    TimeWeightingSet,
 )
 
 FS = 48000
@@ -422,3 +424,237 @@ def test_engine_laf_percentiles_equal_a_level_histogram_of_every_sample() -> Non
         want = hist.exceeded(settings.percentiles) + 10.0 * math.log10(2.0)
         got = [intervals[k].metrics[f"LAF{p:g}_dBFS"] for p in settings.percentiles]
         np.testing.assert_allclose(got, want, rtol=0, atol=1e-9)
+
+
+# ----------------------------------------- TimeWeightingSet: several weightings of one signal
+
+
+def _with_silence(x: np.ndarray, seed: int) -> np.ndarray:
+    """A copy of x with up to three stretches of digital silence (exact zeros)."""
+    rng = np.random.default_rng(seed)
+    y = x.copy()
+    for _ in range(rng.integers(0, 4)):
+        lo = int(rng.integers(0, x.size))
+        y[lo : lo + int(rng.integers(1, 6000))] = 0.0
+    return y
+
+
+def _random_starts(rng: np.random.Generator, size: int, n_max: int) -> np.ndarray:
+    inner = rng.choice(np.arange(1, size), size=min(n_max - 1, size - 1), replace=False)
+    return np.r_[0, np.sort(inner)].astype(np.intp) if size > 1 else np.zeros(1, np.intp)
+
+
+def _peak_hold(x: np.ndarray, held: float, fs: float) -> np.ndarray:
+    """analytic: held[n] = max(x[n], d held[n-1]) = max_k x[k] d**(n-k), d = exp(-1/(fs 1.5 s)),
+    sample by sample; the power of d is taken directly, ``exp(-(n-k)/(fs 1.5 s))`` from the
+    sample k that holds, since repeated products by d gather rounding over a long decay."""
+    rate = 1.0 / (fs * TAU_IMPULSE_DECAY_S)
+    peak, at = held, -1  # the value that holds and its sample (the initial value: before 0)
+    out = np.empty_like(x)
+    for n, v in enumerate(x.tolist()):
+        decayed = peak * math.exp(-(n - at) * rate)
+        if v >= decayed:
+            peak, at, decayed = v, n, v
+        out[n] = decayed
+    return out
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    cuts=st.lists(st.integers(0, 3 * 16384 + 500), max_size=10),
+    maxima_only=st.sampled_from([(), ("I",), ("F", "I"), ("S",)]),
+    n_segments=st.integers(1, 5),
+)
+def test_set_equals_the_single_weightings_over_random_splits(
+    seed: int, cuts: list[int], maxima_only: tuple[str, ...], n_segments: int
+) -> None:
+    # reference: separate TimeWeighting objects (process, or segment_maxima for the maxima-only
+    # ones), block by block; any split, short blocks (lfilter path) and silence included
+    rng = np.random.default_rng(seed)
+    x = _with_silence(_heavy_tailed_squares(seed % 1000, 3 * 16384 + 500), seed)
+    seeds = {"F": 0.02, "S": 0.5, "I": 0.03}
+    tws = TimeWeightingSet(FS, ("F", "S", "I"), initial_mean_square=seeds,
+                           maxima_only=maxima_only)
+    single = {name: TimeWeighting(FS, name, seeds[name]) for name in ("F", "S", "I")}
+    edges = [0, *sorted(cuts), x.size]
+    bitwise = True  # while every block was short, both took lfilter from the same state
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        block = x[lo:hi]
+        bitwise = bitwise and block.size < timeweight._BLOCK_MIN_SAMPLES
+        starts = _random_starts(rng, block.size, n_segments) if block.size else []
+        full, maxima = tws.process(block, starts)
+        assert set(full) == {"F", "S", "I"} - set(maxima_only)
+        assert set(maxima) == set(maxima_only) if block.size else True
+        for name, y in full.items():
+            want = single[name].process(block)
+            assert y.dtype == np.float64 and y.flags.c_contiguous and y.shape == block.shape
+            np.testing.assert_allclose(y, want, rtol=1e-13, atol=0)
+            if bitwise:
+                np.testing.assert_array_equal(y, want)
+        for name in maxima_only if block.size else ():
+            want = single[name].segment_maxima(block, starts)
+            np.testing.assert_allclose(maxima[name], want, rtol=1e-13, atol=0)
+        for name, ms in tws.mean_square.items():
+            assert ms == pytest.approx(single[name].mean_square, rel=1e-13, abs=0)
+
+
+@pytest.mark.parametrize("fs", [8000, 48000, 192000])
+def test_set_matches_the_lfilter_recursion(fs: int) -> None:
+    # external reference: scipy.signal.lfilter of y[n] = a y[n-1] + (1 - a) x[n] over the whole
+    # signal in one call, from the same initial value (and for I the peak hold written out
+    # sample by sample); the set cut into blocks of every kind: below 256 samples (lfilter),
+    # whole frames of 8 and groups of 16 frames, and every kind of remainder
+    from scipy.signal import lfilter
+
+    x = _with_silence(_heavy_tailed_squares(fs + 1, 5 * 16384 + 77), fs)
+    seeds = {"F": 0.3, "S": 0.2, "I": 0.4}
+    tws = TimeWeightingSet(fs, ("F", "S", "I"), initial_mean_square=seeds, maxima_only=())
+    sizes = [1, 255, 256, 257, 263, 8 * 16 * 3, 8 * 16 * 3 + 8, 8 * 17 + 3, 1000, 40000, 4099]
+    edges = np.cumsum([0, *sizes]).tolist() + [x.size]
+    blocks = [tws.process(x[lo:hi]).full for lo, hi in zip(edges[:-1], edges[1:], strict=True)]
+    for name in ("F", "S", "I"):
+        a = math.exp(-1 / (fs * TAU[name]))
+        ref, _ = lfilter([1.0 - a], [1.0, -a], x, zi=[a * seeds[name]])
+        if name == "I":
+            ref = _peak_hold(ref, seeds[name], fs)
+        got = np.concatenate([b[name] for b in blocks])
+        nonzero = ref > 0
+        assert np.array_equal(got == 0, ~nonzero)
+        assert np.max(np.abs(got[nonzero] / ref[nonzero] - 1.0)) <= 1e-13
+        assert tws.mean_square[name] == pytest.approx(ref[-1], rel=1e-13)
+
+
+def test_set_segment_maxima_match_the_lfilter_recursion() -> None:
+    # external reference as above; the engine's use (F, S per sample, I maxima per segment)
+    # on blocks of 2**17 samples with interval boundaries inside them
+    from scipy.signal import lfilter
+
+    x = _with_silence(_random_squared(21, 3 * 2**17), 21)
+    tws = TimeWeightingSet(FS, initial_mean_square=0.01)
+    assert tws.weightings == ("F", "S", "I") and tws.maxima_only == ("I",)
+    a = math.exp(-1 / (FS * TAU_IMPULSE_S))
+    ref_i = _peak_hold(lfilter([1.0 - a], [1.0, -a], x, zi=[a * 0.01])[0], 0.01, FS)
+    for k in range(3):
+        lo = k * 2**17
+        starts = np.array([0, 30000 + 5000 * k, 100000])
+        full, maxima = tws.process(x[lo : lo + 2**17], starts)
+        want = np.maximum.reduceat(ref_i[lo : lo + 2**17], starts)
+        np.testing.assert_allclose(maxima["I"], want, rtol=1e-13, atol=0)
+        assert full["F"].size == full["S"].size == 2**17
+    assert tws.mean_square["I"] == pytest.approx(ref_i[-1], rel=1e-13)
+
+
+def test_set_in_digital_silence() -> None:
+    # as for the single averager: the states are flushed below 1e-200 and the outputs decay
+    # to exact zeros without subnormal numbers
+    tws = TimeWeightingSet(FS, ("F", "I"), maxima_only=())
+    tws.process(_heavy_tailed_squares(2, FS))
+    tiny = np.finfo(np.float64).tiny
+    for _ in range(120):
+        full, _ = tws.process(np.zeros(1 << 16))
+        assert np.all((full["F"] == 0.0) | (full["F"] >= tiny))
+    assert np.all(full["F"] == 0.0) and tws.mean_square["F"] == 0.0
+    assert tws.mean_square["I"] > 0.0  # the 1.5 s hold: 120 blocks are 164 s, 47 decades
+    full, maxima = TimeWeightingSet(FS).process(np.zeros(5000), [0, 10, 4999])
+    np.testing.assert_array_equal(full["F"], 0.0)
+    np.testing.assert_array_equal(maxima["I"], 0.0)
+
+
+def test_set_reset_initial_values_and_state_access() -> None:
+    x = _random_squared(8, 20000)
+    tws = TimeWeightingSet(FS, ("S", "I"), initial_mean_square={"S": 0.2, "I": 0.1, "F": 9.0})
+    assert tws.mean_square == {"S": 0.2, "I": 0.1}
+    first = tws.process(x, [0, 7000])
+    tws.process(x[::-1], [0])
+    tws.reset()
+    assert tws.mean_square == {"S": 0.2, "I": 0.1}
+    again = tws.process(x, [0, 7000])
+    np.testing.assert_array_equal(again.full["S"], first.full["S"])
+    np.testing.assert_array_equal(again.maxima["I"], first.maxima["I"])
+    # the members share the set's state
+    members = tws.members
+    assert set(members) == {"S", "I"}
+    assert members["S"].mean_square == tws.mean_square["S"] == first.full["S"][-1]
+    # one value for all weightings; default one segment
+    one = TimeWeightingSet(FS, ("I",), initial_mean_square=0.1)
+    _, maxima = one.process(x)
+    single = TimeWeighting(FS, "I", initial_mean_square=0.1).segment_maxima(x, [0])
+    np.testing.assert_allclose(maxima["I"], single, rtol=1e-13, atol=0)
+
+
+def test_set_empty_block_keeps_state() -> None:
+    tws = TimeWeightingSet(FS, initial_mean_square=0.5)
+    full, maxima = tws.process(np.empty(0))
+    assert full["F"].size == full["S"].size == 0 and maxima["I"].size == 0
+    assert tws.mean_square == {"F": 0.5, "S": 0.5, "I": 0.5}
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "fragment"),
+    [
+        ({"weightings": ("F", "A")}, "'F', 'S' or 'I'"),
+        ({"weightings": ("F", "F")}, "once each"),
+        ({"weightings": ()}, "once each"),
+        ({"weightings": ("F", "S")}, "maxima_only"),  # default maxima_only ("I",)
+        ({"initial_mean_square": {"F": 1.0, "S": 1.0}}, "no value for"),
+        ({"initial_mean_square": -1.0}, "initial_mean_square"),
+        ({"fs": 0}, "sample rate"),
+    ],
+)
+def test_set_bad_settings_raise(kwargs: dict, fragment: str) -> None:
+    with pytest.raises(SettingsError, match=fragment):
+        TimeWeightingSet(**{"fs": FS, **kwargs})
+
+
+def test_set_bad_blocks_raise_and_advance_nothing() -> None:
+    tws = TimeWeightingSet(FS, initial_mean_square=0.25)
+    with pytest.raises(SettingsError, match="1-D"):
+        tws.process(np.ones((2, 300)))
+    with pytest.raises(SettingsError, match=">= 0"):
+        tws.process(np.r_[np.ones(300), -1.0])
+    with pytest.raises(SettingsError, match=">= 0"):
+        tws.process(np.r_[np.ones(300), np.nan])
+    for starts in ([1, 5], [0, 5, 5], [0, 300]):
+        with pytest.raises(SettingsError, match="segment starts"):
+            tws.process(np.ones(300), starts)
+    assert tws.mean_square == {"F": 0.25, "S": 0.25, "I": 0.25}
+
+
+def _unpruned_segment_maxima(det: PeakDetector, x: np.ndarray, starts: list[int]) -> np.ndarray:
+    """The scan of every sample that PeakDetector.segment_maxima skips part of (reference)."""
+    from bandmeter.numerics import STATE_FLOOR
+
+    chunk = timeweight._DETECTOR_CHUNK
+    edges = [*starts, x.size]
+    out = np.empty(len(starts))
+    for i in range(out.size):
+        part = x[edges[i] : edges[i + 1]]
+        out[i] = max(float(part.max()), det._held * det._d)
+        for start in range(0, part.size, chunk):
+            run = part[start : start + chunk]
+            n = run.size
+            tail = float(np.max(run * det._decay[n - 1 :: -1]))
+            held = max(det._held * det._d * det._decay[n - 1], tail)
+            det._held = held if held >= STATE_FLOOR else 0.0
+    return out
+
+
+@pytest.mark.parametrize("case", ["noise", "rising", "falling", "zeros", "spike_at_end"])
+def test_segment_maxima_skip_nothing_that_counts(case: str) -> None:
+    # the shortcut (products only from the largest sample of each run on) gives the same
+    # bits as the scan of every sample, over segments longer than the 2**14-sample runs
+    n = 3 * 16384 + 123
+    x = {
+        "noise": _random_squared(4, n),
+        "rising": np.linspace(0.0, 1.0, n) ** 3,
+        "falling": np.linspace(1.0, 0.0, n) ** 3,
+        "zeros": np.zeros(n),
+        "spike_at_end": np.r_[np.full(n - 1, 0.5), 0.6],
+    }[case]
+    fast = PeakDetector(FS, initial_mean_square=0.3)
+    slow = PeakDetector(FS, initial_mean_square=0.3)
+    for starts in ([0], [0, 1, 20000, 20001, 40000], [0, n - 1]):
+        np.testing.assert_array_equal(fast.segment_maxima(x, starts),
+                                      _unpruned_segment_maxima(slow, x, starts))
+        assert fast.mean_square == slow.mean_square
