@@ -32,41 +32,37 @@ Speed
 -----
 A sample-by-sample recursion (:func:`scipy.signal.lfilter`, about 5-7 ns per sample on the
 development machine) waits for each result before the next. Blocks of at least
-``_BLOCK_MIN_SAMPLES`` samples are instead cut into frames of ``M = 32`` samples, and every
-output is computed exactly from the output ``Y`` before its frame,
+``_BLOCK_MIN_SAMPLES`` (256) samples are instead cut into frames of ``m = 8`` samples, and
+every output is computed exactly from the output ``Y`` before its frame,
 
-    y[r] = a**(r+1) Y + sum_{i<=r} (1 - a) a**(r-i) x[i],   r = 0 .. M-1,
+    y[r] = a**(r+1) Y + sum_{i<=r} (1 - a) a**(r-i) x[i],   r = 0 .. m-1,
 
-as one matrix product of all frames with the lower-triangular Toeplitz matrix of the sums,
-plus a rank-1 update for the ``a**(r+1) Y`` term; the outputs before each frame follow from
-the frame recurrence ``Y_k = a**M Y_(k-1) + (last column of the product)``, a first-order
-recursion over the frames only (1/32 of the samples). Every term is positive (``x >= 0``), so
-nothing cancels: each output is within a few tens of units in the last place of the
-recursion's (``tests/test_timeweight.py`` compares with lfilter to 1e-13 relative). This
-costs about 2-2.5 ns per sample. The products are made 256 frames at a time, small enough
-for OpenBLAS to run them on the calling thread. Every sample's value is computed: maxima,
-minima and the percentile histogram read them all.
+as one matrix product of all frames with the lower-triangular 8 x 8 Toeplitz matrix of the
+sums (8 multiply-adds per sample), plus a rank-1 update for the ``a**(r+1) Y`` term. The
+outputs before each frame follow from the frame recurrence ``Y_k = a**8 Y_(k-1) + e_k``
+(``e_k`` the sum part of frame k's last output), which is solved the same way over groups of
+16 frames, with the 16 x 16 Toeplitz matrix of the powers ``a**(8 j)``; only the groups'
+recurrence (pole ``a**128``, 1/128 of the samples) runs through lfilter. The two rank-1
+updates (per frame and per group) are matrix products of inner dimension 1 added in place
+(BLAS GEMM with beta = 1), and every power of ``a`` is taken from ``a`` itself, so the
+coefficients are correctly rounded. Every term is positive (``x >= 0``), so nothing cancels:
+each output is within a few tens of units in the last place of the recursion's (within
+about 4e-14 relative of lfilter over 8-192 kHz and F, S, I; ``tests/test_timeweight.py``
+requires 1e-13). This costs about 1.1-1.4 ns per sample (blocks of 2**17 samples, one
+thread), about 1.7 times as fast as the earlier frames of 32 samples with one level (32
+multiply-adds per sample). The products are cut to at most 2**18 multiply-adds, which
+OpenBLAS runs on the calling thread. Every sample's value is computed: maxima, minima and
+the percentile histogram read them all.
 
 The I detector's peak hold needs no per-sample output in the engine, only its maximum per
 interval: :meth:`TimeWeighting.segment_maxima` reads it as ``max(max x, d * held)`` over the
 segment (``held`` the value before it) and advances the hold with one product per sample,
 exactly (module notes of :class:`PeakDetector`).
 
-:class:`TimeWeightingSet` runs several weightings of one signal (the engine's F, S and I) and
-uses a two-level form of the same exact sums, about 1.7 times as fast per averager (blocks of
-2**17 samples, one thread; 1.1-1.4 ns per sample on the development machine): frames of
-``m = 8`` samples (one product with the 8 x 8 Toeplitz matrix, 8 multiply-adds per sample
-instead of 32), and the frame recurrence ``Y_k = a**8 Y_(k-1) + e_k`` (``e_k`` the sum part of
-frame k's last output) solved the same way over groups of 16 frames, with the 16 x 16 Toeplitz
-matrix of the powers ``a**(8 j)``; only the groups' recurrence (pole ``a**128``, 1/128 of the
-samples) runs through lfilter. The two rank-1 updates (``a**(r+1) Y`` per frame, the same per
-group) are matrix products of inner dimension 1 added in place (BLAS GEMM with beta = 1), and
-every power of ``a`` is taken from ``a`` itself, so the coefficients are correctly rounded.
-All terms stay positive, so the outputs agree with the recursion as closely as the 32-sample
-frames do (both within about 4e-14 relative of lfilter over 8-192 kHz and F, S, I; the tests
-require 1e-13). Only the shorter sums group differently, so the set and the single objects
-differ by rounding only. The set also checks the input once, and forms the I averager's output in a
-reused work array that is never returned.
+:class:`TimeWeightingSet` runs several weightings of one signal (the engine's F, S and I)
+with the same arithmetic as the single objects (the same bits): it checks the input once,
+and forms a maxima-only weighting's per-sample values (the I averager's) in a reused work
+array that is never returned.
 """
 
 from __future__ import annotations
@@ -99,13 +95,8 @@ TIME_CONSTANTS_S = {"F": TAU_FAST_S, "S": TAU_SLOW_S, "I": TAU_IMPULSE_S}
 # Longest run handled in one piece by the peak detector's scan: d^-n stays below
 # exp(16384 / (8000 Hz * 1.5 s)) = 3.9 even at a low sample rate, so nothing overflows.
 _DETECTOR_CHUNK = 1 << 14
-#: Samples per frame of the block formulation of the exponential averager.
-_FRAME = 32
 #: Blocks of at least this many samples take the block formulation, shorter ones lfilter.
-_BLOCK_MIN_SAMPLES = 8 * _FRAME
-#: Frames per matrix product: small products stay single-threaded in OpenBLAS (which
-#: threads GEMM above 2**18 multiply-adds and GER above 9216 elements) and in the caches.
-_RUN_FRAMES = 256
+_BLOCK_MIN_SAMPLES = 256
 #: Samples per frame, and frames per group, of the two-level form (:class:`TimeWeightingSet`).
 _GROUP_FRAME = 8
 _GROUP_FRAMES = 16
@@ -283,14 +274,7 @@ class ExponentialAverager:
         self.a = math.exp(-1.0 / (self.fs * self.tau_s))
         self._b = np.array([1.0 - self.a])
         self._den = np.array([1.0, -self.a])
-        # block formulation (module notes): frames of _FRAME samples
-        k = np.arange(_FRAME)
-        lag = k[None, :] - k[:, None]  # r - i for input i (row), output r (column)
-        power = self.a ** np.maximum(lag, 0).astype(np.float64)
-        self._toeplitz = np.where(lag >= 0, (1.0 - self.a) * power, 0.0)  # (i, r)
-        self._carry = self.a ** (k + 1.0)  # a**(r+1): weight of the output before the frame
-        self._frame_den = np.array([1.0, -(self.a**_FRAME)])
-        self._grouped: _GroupedFrames | None = None  # made on first use (TimeWeightingSet)
+        self._grouped: _GroupedFrames | None = None  # block formulation, made on first use
         self.reset()
 
     def reset(self) -> None:
@@ -323,18 +307,11 @@ class ExponentialAverager:
             Time-weighted mean square, same length and units as the input.
         """
         x = _squared_block(squared_block)
-        if x.size == 0:
-            return x.copy()
-        if x.size < _BLOCK_MIN_SAMPLES:
-            y, _ = lfilter(self._b, self._den, x, zi=[self.a * self._state])
-        else:
-            y = self._frames(x)
-        self._keep(float(y[-1]))
-        return y
+        return self._process_grouped(x, np.empty(x.size))
 
     def _process_grouped(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
         """:meth:`process` of a checked block into ``out[:x.size]``, long blocks by the
-        two-level form (module notes, :class:`TimeWeightingSet`); returns that view."""
+        two-level form (module notes); returns that view."""
         y = out if out.size == x.size else out[: x.size]
         if x.size == 0:
             return y
@@ -345,36 +322,6 @@ class ExponentialAverager:
                 self._grouped = _GroupedFrames(self.a)
             self._grouped.outputs(x, self._state, y)
         self._keep(float(y[-1]))
-        return y
-
-    def _frames(self, x: np.ndarray) -> np.ndarray:
-        """Outputs of a block by frames of ``_FRAME`` samples (module notes, Speed)."""
-        m, run = _FRAME, _RUN_FRAMES
-        frames, rest = divmod(x.size, m)
-        y = np.empty(x.size)
-        whole = y[: frames * m].reshape(frames, m)
-        xf = x[: frames * m].reshape(frames, m)
-        full = frames // run * run  # runs of whole batches: one stacked product
-        if full:
-            np.matmul(xf[:full].reshape(-1, run, m), self._toeplitz,
-                      out=whole[:full].reshape(-1, run, m))
-        if full < frames:
-            np.matmul(xf[full:], self._toeplitz, out=whole[full:])
-        # output before each frame: Y_k = a**M Y_(k-1) + (sum part of frame k's last output)
-        ends, _ = lfilter([1.0], self._frame_den, whole[:, -1],
-                          zi=[-self._frame_den[1] * self._state])
-        before = np.empty(frames)
-        before[0] = self._state
-        before[1:] = ends[:-1]
-        for k in range(0, frames, run):  # += Y a**(r+1), in place
-            part = whole[k : k + run]
-            done = blas.dger(1.0, self._carry, before[k : k + run], a=part.T, overwrite_a=True)
-            if not np.may_share_memory(done, part):  # pragma: no cover - BLAS made a copy
-                part[...] = done.T
-        if rest:
-            tail = x[frames * m :] @ self._toeplitz[:rest, :rest]
-            tail += float(ends[-1]) * self._carry[:rest]
-            y[frames * m :] = tail
         return y
 
 
@@ -628,14 +575,11 @@ class TimeWeightingSet:
     """Several time weightings (F, S, I) of one squared signal, computed together.
 
     Gives what separate :class:`TimeWeighting` objects give (their :meth:`~TimeWeighting.process`
-    and :meth:`~TimeWeighting.segment_maxima`), with the same states carried across blocks, in
-    about 60 % of the time (the engine's F and S outputs and I maxima on blocks of 2**17
-    samples: 1.6 times as fast): the input is checked once, blocks of at least 256 samples
-    take the two-level block form (module notes), and a maxima-only weighting's per-sample
-    values go to a reused work array. Shorter blocks take lfilter, as the single objects do
-    (from the same state, the same to the bit). Every output is within a few tens of units
-    in the last place of the sample-by-sample recursion and of the single objects (1e-13
-    relative in the tests, typically below 4e-14).
+    and :meth:`~TimeWeighting.segment_maxima`), by the same arithmetic (the same bits), with
+    the same states carried across blocks: the input is checked once, and a maxima-only
+    weighting's per-sample values go to a reused work array instead of a new one. Every
+    output is within a few tens of units in the last place of the sample-by-sample recursion
+    (module notes; 1e-13 relative in the tests, typically below 4e-14).
 
     Parameters
     ----------
