@@ -124,6 +124,21 @@ Speed
     block path within a block, so that digital silence does not leave them in slow
     subnormal arithmetic.
 
+Set-up
+    The designs are cached per process, but every fresh process (a CLI run, a benchmark
+    child) designs its bank once. ``_butter_bandpass`` repeats the steps of
+    ``scipy.signal.butter(..., output="sos")`` for the band-pass (prototype poles,
+    pre-warping, band-pass and bilinear transforms, "nearest" pairing) with the same
+    floating-point operations but without scipy's per-call overhead, and ``_sos_response``
+    the arithmetic of ``sosfreqz``; ``_MaskCheck`` computes a band's check frequencies and
+    limits once, so the Nelder-Mead search pays one response per trial. The sections and
+    margins are the same to the last bit (all bands of b = 1 .. 24 at 8 - 192 kHz, 6568
+    cases, and 6000 random band-passes were compared); ``_fast_design_ok`` checks one design
+    per process against scipy and falls back to scipy itself if a scipy release computes
+    differently. The one-third-octave bank at 48 kHz then takes 22-24 ms to build in a
+    fresh process instead of 80-99 ms (medians, alternated runs); about a third of what is
+    left is the group delays (``scipy.signal.group_delay``).
+
 Input units are preserved: a band's mean square is in input units squared (Pa**2 after
 calibration).
 """
@@ -190,14 +205,25 @@ _BP_LOWER = (-0.4, -0.4, -0.4, -0.4, 1.2, 16.6, 40.5, 60.0, 70.0)
 _BP_UPPER = (0.4, 0.5, 0.7, 1.4, 5.3, math.inf, math.inf, math.inf, math.inf)
 
 
+@functools.cache
 def _breakpoints(b: int) -> np.ndarray:
     """Upper breakpoints Omega_b for a 1/b-octave filter (IEC 61260-1:2014 Annex F mapping).
 
     ``Omega_b = 1 + (G**(1/(2b)) - 1) / (G**(1/2) - 1) * (Omega_1 - 1)``; lower breakpoints are
-    ``1 / Omega_b`` (REFERENCE_VALUES.md 5.2).
+    ``1 / Omega_b`` (REFERENCE_VALUES.md 5.2). Cached, read-only.
     """
     omega1 = G ** np.asarray(_BP_EXPONENTS)
-    return 1.0 + (G ** (1.0 / (2 * b)) - 1.0) / (G**0.5 - 1.0) * (omega1 - 1.0)
+    bp = 1.0 + (G ** (1.0 / (2 * b)) - 1.0) / (G**0.5 - 1.0) * (omega1 - 1.0)
+    bp.setflags(write=False)
+    return bp
+
+
+# Limits between breakpoint k and k + 1 (the staircase envelope), and beyond the last one.
+_NEXT_BP = np.minimum(np.arange(len(_BP_EXPONENTS)) + 1, len(_BP_EXPONENTS) - 1)
+_LOWER_TAB = np.asarray(_BP_LOWER)
+_UPPER_TAB = np.asarray(_BP_UPPER)
+_ENV_LOWER = np.minimum(_LOWER_TAB, _LOWER_TAB[_NEXT_BP])
+_ENV_UPPER = np.maximum(_UPPER_TAB, _UPPER_TAB[_NEXT_BP])
 
 
 def class1_limits(omega: np.ndarray | float, b: int) -> tuple[np.ndarray, np.ndarray]:
@@ -223,19 +249,16 @@ def class1_limits(omega: np.ndarray | float, b: int) -> tuple[np.ndarray, np.nda
     om = np.atleast_1d(np.asarray(omega, dtype=float))
     u = np.where(om >= 1.0, om, 1.0 / om)
     bp = _breakpoints(b)
-    lo_tab = np.asarray(_BP_LOWER)
-    hi_tab = np.asarray(_BP_UPPER)
-    lower = np.full(u.shape, _BP_LOWER[-1])
-    upper = np.full(u.shape, math.inf)
     k = np.clip(np.searchsorted(bp, u, side="right") - 1, 0, len(bp) - 1)
     inside = u < bp[-1]
-    kk = k[inside]
-    lower[inside] = np.minimum(lo_tab[kk], lo_tab[np.minimum(kk + 1, len(bp) - 1)])
-    upper[inside] = np.maximum(hi_tab[kk], hi_tab[np.minimum(kk + 1, len(bp) - 1)])
-    for i, point in enumerate(bp):
-        on = np.abs(u / point - 1.0) < 1e-9
-        lower[on] = _BP_LOWER[i]
-        upper[on] = _BP_UPPER[i]
+    lower = np.where(inside, _ENV_LOWER[k], _BP_LOWER[-1])
+    upper = np.where(inside, _ENV_UPPER[k], math.inf)
+    # at a breakpoint (to 1e-9) its own limits: only the breakpoints on either side of u,
+    # k and k + 1, can be that close (they lie much further apart)
+    for j in (k, _NEXT_BP[k]):
+        on = np.abs(u / bp[j] - 1.0) < 1e-9
+        lower = np.where(on, _LOWER_TAB[j], lower)
+        upper = np.where(on, _UPPER_TAB[j], upper)
     return lower, upper
 
 
@@ -268,18 +291,90 @@ def effective_bandwidth_beta(b: int, order: int = ORDER) -> float:
     return float(optimize.brentq(excess, 0.8, 1.0, xtol=1e-12))
 
 
-def _mask_points(fm: float, rate: float, b: int) -> np.ndarray:
-    """Normalised check frequencies: every breakpoint plus a dense grid, below rate/2."""
+@functools.cache
+def _mask_grid(b: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The parts of :func:`_mask_points` that depend on ``b`` only (cached, read-only).
+
+    Returns the breakpoints, the breakpoints with the dense grid between them (``G**0`` to
+    ``G**4``) and the grid below ``1 / G**4``.
+    """
     bp = _breakpoints(b)
     pieces = [bp]
     for lo, hi in zip(bp[:-1], bp[1:], strict=True):
         pieces.append(np.geomspace(lo, hi, 42)[1:-1])
+    parts = (bp, np.concatenate(pieces), np.geomspace(1.0 / bp[-1], 1e-3, 30))
+    for part in parts:
+        part.setflags(write=False)
+    return parts
+
+
+def _mask_points(fm: float, rate: float, b: int) -> np.ndarray:
+    """Normalised check frequencies: every breakpoint plus a dense grid, below rate/2."""
+    bp, inner, tail = _mask_grid(b)
     nyq = 0.5 * rate / fm
-    if nyq > bp[-1]:
-        pieces.append(np.geomspace(bp[-1], nyq, 40))
-    up = np.concatenate(pieces)
-    om = np.concatenate([up, 1.0 / up[1:], np.geomspace(1.0 / bp[-1], 1e-3, 30)])
+    up = np.concatenate([inner, np.geomspace(bp[-1], nyq, 40)]) if nyq > bp[-1] else inner
+    om = np.concatenate([up, 1.0 / up[1:], tail])
     return np.unique(om[(om * fm < 0.5 * rate * (1.0 - 1e-9)) & (om > 0)])
+
+
+def _unit_points(f_hz: np.ndarray, rate: float) -> np.ndarray:
+    """``exp(-1j w)`` at the frequencies ``f_hz``, as ``scipy.signal.sosfreqz`` computes it."""
+    return np.exp(-1j * (2 * math.pi * np.asarray(f_hz, dtype=np.float64) / float(rate)))
+
+
+def _sos_response(sos: np.ndarray, zm1: np.ndarray) -> np.ndarray:
+    """Complex response of the sections ``sos`` at the points ``zm1 = exp(-1j w)`` (1-D).
+
+    The arithmetic of ``scipy.signal.sosfreqz`` operation by operation (each section's
+    numerator and denominator by Horner's rule in ``exp(-1j w)``, their quotient, the product
+    over the sections in section order), with the same operand order and array shapes: NumPy's
+    complex multiplication (SIMD loops with fused multiply-adds, not symmetric in its operands)
+    can round differently for other layouts, so only the same calls give the same last bit.
+    What is saved is scipy's validation and the points, computed once per grid by the caller.
+    """
+    h = 1.0
+    for row in sos:
+        h *= (row[0] + (row[1] + row[2] * zm1) * zm1) / (row[3] + (row[4] + row[5] * zm1) * zm1)
+    return h
+
+
+def _response(sos: np.ndarray, zm1: np.ndarray, f_hz: Sequence[float], rate: float) -> np.ndarray:
+    """``scipy.signal.sosfreqz(sos, worN=f_hz, fs=rate)[1]``; ``zm1 = _unit_points(f_hz, rate)``."""
+    if _fast_design_ok():
+        return _sos_response(sos, zm1)
+    return signal.sosfreqz(sos, worN=f_hz, fs=rate)[1]
+
+
+class _MaskCheck:
+    """The class 1 check of trial designs of one band at one rate.
+
+    Everything :func:`_mask_margins` needs that does not depend on the design (the points
+    ``exp(-1j w)`` of the check frequencies ``om`` and their limits) is computed once, so
+    the Nelder-Mead search of :func:`_design` pays only the response of each trial. The
+    points are held in pass-band-first order, which leaves every margin unchanged.
+    """
+
+    def __init__(self, fm: float, rate: float, b: int, om: np.ndarray) -> None:
+        lower, upper = class1_limits(om, b)
+        finite = np.isfinite(upper)
+        order = np.concatenate([np.flatnonzero(finite), np.flatnonzero(~finite)])
+        self.n_pass = int(np.count_nonzero(finite))
+        self.rate = rate
+        self.f_hz = (om * fm)[order]
+        self.zm1 = _unit_points(self.f_hz, rate)
+        self.zm1_fm = _unit_points([fm], rate)
+        self.lower_pass = lower[order[: self.n_pass]]
+        self.upper_pass = upper[order[: self.n_pass]]
+        self.lower_stop = lower[order[self.n_pass :]]
+
+    def margins(self, sos: np.ndarray) -> tuple[float, float]:
+        """``(pass_margin, stop_margin)`` of ``sos``, dB, as :func:`_mask_margins`."""
+        h = _response(sos, self.zm1, self.f_hz, self.rate)
+        att = -20.0 * np.log10(np.maximum(np.abs(h), 1e-300))
+        a_pass = att[: self.n_pass]
+        m_pass = np.min(np.minimum(a_pass - self.lower_pass, self.upper_pass - a_pass))
+        m_stop = np.min(att[self.n_pass :] - self.lower_stop)
+        return float(m_pass), float(m_stop)
 
 
 def _mask_margins(
@@ -290,33 +385,193 @@ def _mask_margins(
     Returns ``(pass_margin, stop_margin)``: the first over the points with a finite upper
     limit (pass band and skirts up to ``G**(1/2)``), the second over the stop band.
     """
-    _, h = signal.sosfreqz(sos, worN=om * fm, fs=rate)
-    att = -20.0 * np.log10(np.maximum(np.abs(h), 1e-300))
-    lower, upper = class1_limits(om, b)
-    margin = np.minimum(att - lower, upper - att)
-    finite = np.isfinite(upper)
-    return float(np.min(margin[finite])), float(np.min(margin[~finite]))
+    return _MaskCheck(fm, rate, b, om).margins(sos)
 
 
-def _butter_sos(fm: float, lo: float, hi: float, rate: float) -> np.ndarray:
-    sos = signal.butter(ORDER, [lo, hi], btype="bandpass", fs=rate, output="sos")
-    _, h = signal.sosfreqz(sos, worN=[fm], fs=rate)
+# ``scipy.signal.butter(ORDER, [lo, hi], "bandpass", fs=rate, output="sos")`` without scipy's
+# per-call overhead: the same steps (buttap, pre-warping, lp2bp_zpk, bilinear_zpk, zpk2sos
+# with its default "nearest" pairing) with the same floating-point operations, so the
+# sections are the same to the last bit (checked on first use, _fast_design_ok, and by the
+# tests). zpk2sos pairs the digital zeros (ORDER at -1, ORDER at +1) with the poles, the pole
+# closest to the unit circle first, into the last section; for a band-pass of complex poles
+# each section gets the two remaining zeros nearest its pole pair, both at +1 or both at -1.
+# Anything else (a real pole, a pole equally far from both zeros) goes to scipy itself.
+
+#: Poles of the analog Butterworth prototype, computed as ``scipy.signal.buttap`` does.
+_PROTO_POLES = -np.exp(1j * np.pi * np.arange(-ORDER + 1, ORDER, 2, dtype=np.float64) / (2 * ORDER))
+#: ``prod(fs2 - z)`` of scipy's bilinear transform for the band-pass's ORDER zeros at s = 0.
+_ZEROS_PROD = np.prod(4.0 - np.zeros(ORDER, dtype=np.complex128))
+#: The two numerators of the sections: zeros at z = -1 (index 0) and z = +1 (index 1).
+_SECTION_NUM = np.array([[1.0, 2.0, 1.0], [1.0, -2.0, 1.0]])
+_ZERO_PAIR = np.array([-1.0, 1.0])
+
+
+def _cplxreal(z: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """``scipy.signal._filter_design._cplxreal`` (same operations); None where it raises."""
+    tol = 100 * np.finfo((1.0 * z).dtype).eps
+    z = z[np.lexsort((abs(z.imag), z.real))]
+    real_indices = abs(z.imag) <= tol * abs(z)
+    zr = z[real_indices].real
+    if len(zr) == len(z):
+        return np.array([]), zr
+    z = z[~real_indices]
+    zp = z[z.imag > 0]
+    zn = z[z.imag < 0]
+    if len(zp) != len(zn):
+        return None
+    same_real = np.diff(zp.real) <= tol * abs(zp[:-1])
+    diffs = np.diff(np.concatenate(([0], same_real, [0])))
+    run_starts = np.nonzero(diffs > 0)[0]
+    run_stops = np.nonzero(diffs < 0)[0]
+    for i in range(len(run_starts)):
+        start = run_starts[i]
+        stop = run_stops[i] + 1
+        for chunk in (zp[start:stop], zn[start:stop]):
+            chunk[...] = chunk[np.lexsort([abs(chunk.imag)])]
+    if any(abs(zp - zn.conj()) > tol * abs(zn)):
+        return None
+    return (zp + zn.conj()) / 2, zr
+
+
+def _conjugate_poles(p_z: np.ndarray) -> np.ndarray | None:
+    """The poles of positive imaginary part when ``p_z`` holds exact conjugate pairs only.
+
+    Then ``_cplxreal(p_z)`` returns these same values (its averages of each pole and its
+    partner's conjugate are exact), in an order of its own; None otherwise (a real or nearly
+    real pole, a pair that is not exact).
+    """
+    tol = 100 * np.finfo(np.float64).eps
+    if np.any(abs(p_z.imag) <= tol * abs(p_z)):
+        return None
+    up = p_z[p_z.imag > 0]
+    if 2 * len(up) != len(p_z):
+        return None
+    key = _re_im
+    if sorted(up.tolist(), key=key) != sorted(p_z[p_z.imag < 0].conj().tolist(), key=key):
+        return None
+    return up
+
+
+def _re_im(c: complex) -> tuple[float, float]:
+    return c.real, c.imag
+
+
+def _butter_bandpass(lo: float, hi: float, rate: float) -> np.ndarray:
+    """``scipy.signal.butter(ORDER, [lo, hi], "bandpass", fs=rate, output="sos")``."""
+    fs = float(rate)
+    wn = np.asarray([lo, hi], dtype=np.float64) / (fs / 2)
+    if not 0.0 < wn[0] < wn[1] < 1.0:
+        return _scipy_butter(lo, hi, rate)  # scipy's error
+    # iirfilter: pre-warping at fs = 2, then lp2bp_zpk
+    warped = 2 * 2.0 * np.tan(np.pi * wn / 2.0)
+    bw = float(warped[1] - warped[0])
+    wo = float(np.sqrt(warped[0] * warped[1]))
+    p_lp = _PROTO_POLES * bw / 2
+    root = np.sqrt(p_lp**2 - wo**2)
+    p_bp = np.concatenate((p_lp + root, p_lp - root))
+    k_bp = 1.0 * bw**ORDER
+    # bilinear_zpk at fs = 2
+    p_z = (4.0 + p_bp) / (4.0 - p_bp)
+    k = np.asarray(k_bp * np.real(_ZEROS_PROD / np.prod(4.0 - p_bp))).real
+    # zpk2sos, pairing "nearest": the poles one of each conjugate pair, ranked by distance
+    # to the unit circle (np.argmin takes the first of equal values: a stable sort); the
+    # ranking does not depend on the poles' order unless two distances are equal
+    p = _conjugate_poles(p_z)
+    worst = None if p is None else np.abs(1 - np.abs(p))
+    if worst is None or len(set(worst.tolist())) < len(worst):
+        split = _cplxreal(p_z)
+        if split is None or len(split[1]) or len(split[0]) != ORDER:
+            return _scipy_butter(lo, hi, rate)
+        p = split[0]
+        worst = np.abs(1 - np.abs(p))
+    n = len(p)
+    order = sorted(range(n), key=worst.__getitem__)
+    dist = np.abs(_ZERO_PAIR[:, None] - p).tolist()  # to the zeros at -1 and +1
+    left = [ORDER, ORDER]  # zeros at -1, +1 not yet paired
+    sos = np.empty((n, 6))
+    for si, i in zip(range(n - 1, -1, -1), order, strict=True):
+        if left[0] and left[1]:  # the nearer zeros (a tie goes to scipy's sort)
+            if dist[0][i] == dist[1][i]:
+                return _scipy_butter(lo, hi, rate)
+            side = 0 if dist[0][i] < dist[1][i] else 1
+        else:  # the zeros that are left (always an even number of each)
+            side = 0 if left[0] else 1
+        left[side] -= 2
+        sos[si, :3] = _SECTION_NUM[side]
+    # denominators: poly([p1, conj(p1)]) = [1, -2 Re p1, Re(p1)**2 + Im(p1)**2]
+    pr, pim = p.real[order[::-1]], p.imag[order[::-1]]
+    sos[:, 3] = 1.0
+    sos[:, 4] = -2.0 * pr
+    sos[:, 5] = pr * pr + pim * pim
+    sos[0][:3] *= k
+    return sos
+
+
+def _scipy_butter(lo: float, hi: float, rate: float) -> np.ndarray:
+    return signal.butter(ORDER, [lo, hi], btype="bandpass", fs=rate, output="sos")
+
+
+@functools.lru_cache(maxsize=1)
+def _fast_design_ok() -> bool:
+    """True when :func:`_butter_bandpass` and :func:`_sos_response` reproduce scipy exactly.
+
+    Checked once per process on one design, the way :func:`_kernel_ok` checks the private
+    sosfilt kernel: if this platform's arithmetic differs, the designs and their responses
+    are taken from ``scipy.signal.butter`` and ``sosfreqz`` themselves.
+    """
+    lo, hi, rate, f = 11300.0, 14200.0, 48000.0, [1.0, 1000.0, 12600.0, 23999.0]
+    sos = _butter_bandpass(lo, hi, rate)
+    if not np.array_equal(sos, _scipy_butter(lo, hi, rate)):
+        return False
+    _, h = signal.sosfreqz(sos, worN=f, fs=rate)
+    return bool(np.array_equal(_sos_response(sos, _unit_points(f, rate)), h))
+
+
+def _butter_sos(
+    fm: float, lo: float, hi: float, rate: float, zm1_fm: np.ndarray | None = None
+) -> np.ndarray:
+    """Butterworth band-pass with edges ``lo``, ``hi`` at ``rate``, 0 dB at ``fm``.
+
+    ``zm1_fm`` is ``_unit_points([fm], rate)`` when the caller has it.
+    """
+    fast = _fast_design_ok()
+    sos = _butter_bandpass(lo, hi, rate) if fast else _scipy_butter(lo, hi, rate)
+    if zm1_fm is None:
+        zm1_fm = _unit_points([fm], rate)
+    h = _response(sos, zm1_fm, [fm], rate)
     sos[0, :3] /= abs(h[0])
     return np.ascontiguousarray(sos)
+
+
+#: ``effective_bandwidth_beta(b)`` for ``ORDER`` = 4, as it computes them (which takes a few
+#: ms per designator); tests/test_filterbank.py checks that they are the same to the last bit.
+_BETA_ORDER4 = {
+    1: 0.9783989791294948,
+    3: 0.9749831627664889,
+    6: 0.9746188424891595,
+    12: 0.9745263281489281,
+    24: 0.9745031070638727,
+}
+
+
+def _design_beta(b: int) -> float:
+    if ORDER == 4 and b in _BETA_ORDER4:
+        return _BETA_ORDER4[b]
+    return effective_bandwidth_beta(b)
 
 
 @functools.lru_cache(maxsize=4096)
 def _design(band: Band, rate: float, optimise: bool) -> tuple[np.ndarray | None, float]:
     """Design one band filter at ``rate``; return ``(sos, class 1 margin dB)`` (cached)."""
     nyq = 0.5 * rate
-    beta = effective_bandwidth_beta(band.b)
+    beta = _design_beta(band.b)
     q = G ** (beta / (2 * band.b))
     lo, hi = band.exact_hz / q, band.exact_hz * q
     if band.upper_hz >= nyq or hi >= nyq:
         return None, -math.inf
-    om = _mask_points(band.exact_hz, rate, band.b)
-    sos = _butter_sos(band.exact_hz, lo, hi, rate)
-    margin = min(_mask_margins(sos, band.exact_hz, rate, band.b, om))
+    check = _MaskCheck(band.exact_hz, rate, band.b, _mask_points(band.exact_hz, rate, band.b))
+    sos = _butter_sos(band.exact_hz, lo, hi, rate, check.zm1_fm)
+    margin = min(check.margins(sos))
     if not optimise or margin >= _OPTIMISE_BELOW_DB:
         return sos, margin
 
@@ -324,8 +579,7 @@ def _design(band: Band, rate: float, optimise: bool) -> tuple[np.ndarray | None,
         lo_p, hi_p = lo * math.exp(p[0]), hi * math.exp(p[1])
         if not 0.0 < lo_p < hi_p < nyq * (1.0 - 1e-6):
             return 10.0
-        trial = _butter_sos(band.exact_hz, lo_p, hi_p, rate)
-        m_pass, m_stop = _mask_margins(trial, band.exact_hz, rate, band.b, om)
+        m_pass, m_stop = check.margins(_butter_sos(band.exact_hz, lo_p, hi_p, rate, check.zm1_fm))
         # worst-case margin first (it cannot exceed 0.4 dB, the tolerance at fm), then as
         # much stop-band margin as the pass band allows
         return -(min(m_pass, m_stop, 0.4) + 0.01 * min(m_stop, 6.0))
@@ -333,8 +587,9 @@ def _design(band: Band, rate: float, optimise: bool) -> tuple[np.ndarray | None,
     res = optimize.minimize(
         cost, np.zeros(2), method="Nelder-Mead", options={"xatol": 1e-6, "fatol": 1e-7}
     )
-    best = _butter_sos(band.exact_hz, lo * math.exp(res.x[0]), hi * math.exp(res.x[1]), rate)
-    best_margin = min(_mask_margins(best, band.exact_hz, rate, band.b, om))
+    lo_b, hi_b = lo * math.exp(res.x[0]), hi * math.exp(res.x[1])
+    best = _butter_sos(band.exact_hz, lo_b, hi_b, rate, check.zm1_fm)
+    best_margin = min(check.margins(best))
     if best_margin > margin:
         return best, best_margin
     return sos, margin
