@@ -166,6 +166,7 @@ from bandmeter.blockfilter import (  # noqa: F401 - re-exported: the bank's kern
     _probe_deviation,
     _state_space,
     matmul_rows,
+    probe_once,
 )
 from bandmeter.errors import SettingsError
 from bandmeter.numerics import flush_tiny
@@ -694,7 +695,7 @@ class _StagePlan:
         for start in range(0, len(soss), _GROUP_MAX):
             idx = list(range(start, min(start + _GROUP_MAX, len(soss))))
             kernel = _BlockKernel([soss[j] for j in idx], scratch=scratch)
-            dev = _probe_deviation(kernel, [soss[j] for j in idx])
+            dev = probe_once(_probe_deviation, kernel, [soss[j] for j in idx])
             good = [j for j, d in zip(idx, dev, strict=True) if d <= _BLOCK_TOL]
             if good and len(good) < len(idx):
                 kernel = _BlockKernel([soss[j] for j in good], scratch=scratch)

@@ -284,3 +284,42 @@ def test_multi_filter_reset_empty_blocks_and_bad_input() -> None:
         MultiSosFilter([])
     with pytest.raises(SettingsError, match="shape"):
         MultiSosFilter([soss[0], np.ones((2, 5))])
+
+
+def test_probe_verdicts_are_reused_for_the_same_computation(monkeypatch: pytest.MonkeyPatch
+                                                           ) -> None:
+    # a second kernel of the same sections takes the first one's verdict; other sections, or
+    # the same sections in another realisation, are probed; callers get copies
+    monkeypatch.setattr(bf, "_PROBE_CACHE", {})
+    calls = []
+
+    def probe(kernel, soss):
+        calls.append(len(soss))
+        return bf._probe_cascades(kernel, soss)
+
+    a, c = design_sos("A", 48000), design_sos("C", 48000)
+    first = bf.probe_once(probe, bf._BlockKernel([a], realise=bf._cascade_state_space), [a])
+    first[0] = 99.0  # a copy: the kept verdict is unchanged
+    again = bf.probe_once(probe, bf._BlockKernel([a], realise=bf._cascade_state_space), [a])
+    assert calls == [1] and again[0] < 1e-12
+    bf.probe_once(probe, bf._BlockKernel([c], realise=bf._cascade_state_space), [c])
+    bf.probe_once(probe, bf._BlockKernel([a]), [a])  # sosfilt's realisation: another computation
+    assert calls == [1, 1, 1]
+    # the cache is bounded
+    monkeypatch.setattr(bf, "_PROBE_CACHE_SIZE", 2)
+    c4 = bf._pad_sections(c, a.shape[0])
+    bf.probe_once(probe, bf._BlockKernel([a, c4]), [a, c4])
+    assert len(bf._PROBE_CACHE) == 2 and calls == [1, 1, 1, 2]
+
+
+def test_multi_filters_of_the_same_sections_probe_once(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(bf, "_PROBE_CACHE", {})
+    calls = []
+    real = bf._probe_cascades
+    monkeypatch.setattr(bf, "_probe_cascades", lambda k, s: calls.append(1) or real(k, s))
+    x = np.random.default_rng(10).standard_normal(5000)
+    outs = [MultiSosFilter([design_sos("A", 44100)]).process(x)[0] for _ in range(3)]
+    assert len(calls) == 1
+    ref = signal.sosfilt(design_sos("A", 44100), x)
+    for y in outs:
+        assert np.max(np.abs(y - ref)) <= 2e-12 * np.max(np.abs(ref))
