@@ -1155,8 +1155,15 @@ class FractionalOctaveBank:
 
 
 def _sos_group_delay_s(sos: np.ndarray, f_hz: float, rate: float) -> float:
-    total = 0.0
-    for section in sos:
-        _, gd = signal.group_delay((section[:3], section[3:]), w=[f_hz], fs=rate)
-        total += float(gd[0])
-    return total / rate
+    """Group delay of the cascade ``sos`` at ``f_hz``, s.
+
+    Each polynomial ``P(z) = sum_k p_k z**-k`` delays by ``Re(sum_k k p_k z**-k / P(z))``
+    samples at ``z = exp(j w)`` (the derivative of its phase), a section by its numerator's
+    less its denominator's; the formula of ``scipy.signal.group_delay``, evaluated directly
+    (that function's checks cost about 0.3 ms per section).
+    """
+    zm1 = np.exp(-2j * math.pi * f_hz / rate) ** np.arange(3)
+    k = np.arange(3.0)
+    num, den = sos[:, :3] @ zm1, sos[:, 3:] @ zm1
+    delay = np.real((sos[:, :3] @ (k * zm1)) / num) - np.real((sos[:, 3:] @ (k * zm1)) / den)
+    return float(np.sum(delay)) / rate

@@ -812,3 +812,13 @@ def test_design_beta_table_is_effective_bandwidth_beta():
     assert fb.ORDER == 4
     for b in (1, 3, 6, 12, 24):
         assert fb._design_beta(b) == fb.effective_bandwidth_beta(b)
+
+
+@pytest.mark.parametrize("fs", [8000.0, 44100.0, 96000.0])
+def test_band_group_delays_match_scipy_group_delay(fs):
+    # reference: scipy.signal.group_delay of each section at the exact mid-band frequency
+    bank = fb.FractionalOctaveBank(fs, 3)
+    for sos, band, rate in zip(bank.band_sos, bank.bands, bank.rates_hz, strict=True):
+        ref = sum(signal.group_delay((s[:3], s[3:]), w=[band.exact_hz], fs=rate)[1][0]
+                  for s in sos) / rate
+        assert fb._sos_group_delay_s(sos, band.exact_hz, rate) == pytest.approx(ref, rel=1e-12)
