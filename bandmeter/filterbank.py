@@ -408,30 +408,16 @@ _ZERO_PAIR = np.array([-1.0, 1.0])
 
 
 def _cplxreal(z: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
-    """``scipy.signal._filter_design._cplxreal`` (same operations); None where it raises."""
-    tol = 100 * np.finfo((1.0 * z).dtype).eps
-    z = z[np.lexsort((abs(z.imag), z.real))]
-    real_indices = abs(z.imag) <= tol * abs(z)
-    zr = z[real_indices].real
-    if len(zr) == len(z):
-        return np.array([]), zr
-    z = z[~real_indices]
-    zp = z[z.imag > 0]
-    zn = z[z.imag < 0]
-    if len(zp) != len(zn):
+    """scipy's own ``_cplxreal`` (the split of ``zpk2sos``, private); None where it raises
+    or is missing (the caller then takes ``scipy.signal.butter`` itself)."""
+    try:
+        from scipy.signal._filter_design import _cplxreal as split
+    except ImportError:  # pragma: no cover - another scipy layout
         return None
-    same_real = np.diff(zp.real) <= tol * abs(zp[:-1])
-    diffs = np.diff(np.concatenate(([0], same_real, [0])))
-    run_starts = np.nonzero(diffs > 0)[0]
-    run_stops = np.nonzero(diffs < 0)[0]
-    for i in range(len(run_starts)):
-        start = run_starts[i]
-        stop = run_stops[i] + 1
-        for chunk in (zp[start:stop], zn[start:stop]):
-            chunk[...] = chunk[np.lexsort([abs(chunk.imag)])]
-    if any(abs(zp - zn.conj()) > tol * abs(zn)):
+    try:
+        return split(z)
+    except ValueError:
         return None
-    return (zp + zn.conj()) / 2, zr
 
 
 def _conjugate_poles(p_z: np.ndarray) -> np.ndarray | None:
@@ -544,28 +530,11 @@ def _butter_sos(
     return np.ascontiguousarray(sos)
 
 
-#: ``effective_bandwidth_beta(b)`` for ``ORDER`` = 4, as it computes them (which takes a few
-#: ms per designator); tests/test_filterbank.py checks that they are the same to the last bit.
-_BETA_ORDER4 = {
-    1: 0.9783989791294948,
-    3: 0.9749831627664889,
-    6: 0.9746188424891595,
-    12: 0.9745263281489281,
-    24: 0.9745031070638727,
-}
-
-
-def _design_beta(b: int) -> float:
-    if ORDER == 4 and b in _BETA_ORDER4:
-        return _BETA_ORDER4[b]
-    return effective_bandwidth_beta(b)
-
-
 @functools.lru_cache(maxsize=4096)
 def _design(band: Band, rate: float, optimise: bool) -> tuple[np.ndarray | None, float]:
     """Design one band filter at ``rate``; return ``(sos, class 1 margin dB)`` (cached)."""
     nyq = 0.5 * rate
-    beta = _design_beta(band.b)
+    beta = effective_bandwidth_beta(band.b)
     q = G ** (beta / (2 * band.b))
     lo, hi = band.exact_hz / q, band.exact_hz * q
     if band.upper_hz >= nyq or hi >= nyq:

@@ -75,6 +75,7 @@ import numpy as np
 from scipy.linalg import blas
 from scipy.signal import lfilter
 
+from .blockfilter import SINGLE_THREAD_MACS, matmul_rows
 from .errors import SettingsError
 from .numerics import STATE_FLOOR
 
@@ -100,8 +101,6 @@ _BLOCK_MIN_SAMPLES = 256
 #: Samples per frame, and frames per group, of the two-level form (:class:`TimeWeightingSet`).
 _GROUP_FRAME = 8
 _GROUP_FRAMES = 16
-#: Largest matrix product (multiply-adds) that OpenBLAS runs on the calling thread.
-_ONE_THREAD_MADDS = 1 << 18
 #: Longest block whose work array a :class:`TimeWeightingSet` keeps between blocks (samples).
 _KEEP_WORK_SAMPLES = 1 << 18
 
@@ -164,24 +163,13 @@ def _toeplitz(a: float, m: int, gain: float, step: int) -> np.ndarray:
     return np.where(lag >= 0, gain * power, 0.0)
 
 
-def _products(rows: np.ndarray, matrix: np.ndarray, out: np.ndarray) -> None:
-    """``out = rows @ matrix`` by products small enough for one thread (C-contiguous)."""
-    k, n = matrix.shape
-    run = max(1, _ONE_THREAD_MADDS // (k * n))
-    full = rows.shape[0] // run * run
-    if full:
-        np.matmul(rows[:full].reshape(-1, run, k), matrix, out=out[:full].reshape(-1, run, n))
-    if full < rows.shape[0]:
-        np.matmul(rows[full:], matrix, out=out[full:])
-
-
 def _add_outer(out: np.ndarray, row: np.ndarray, column: np.ndarray) -> None:
     """``out[i, r] += row[i] * column[r, 0]`` in place (``out`` C-contiguous ``(len(row), m)``).
 
     A matrix product of inner dimension 1 added with beta = 1 (one pass over ``out``); faster
     than BLAS GER on these short rows.
     """
-    step = max(1, _ONE_THREAD_MADDS // column.shape[0])
+    step = max(1, SINGLE_THREAD_MACS // column.shape[0])
     for k in range(0, row.size, step):
         part = out[k : k + step]
         done = blas.dgemm(1.0, column, row[None, k : k + step], beta=1.0, c=part.T,
@@ -207,7 +195,7 @@ class _GroupedFrames:
         m, g = _GROUP_FRAME, _GROUP_FRAMES
         frames, rest = divmod(x.size, m)
         whole = out[: frames * m].reshape(frames, m)
-        _products(x[: frames * m].reshape(frames, m), self.toeplitz, whole)
+        matmul_rows(x[: frames * m].reshape(frames, m), self.toeplitz, whole)
         ends = np.empty(frames)  # sum part of each frame's last output
         np.copyto(ends, whole[:, -1])
         # frame-end outputs Y_k = a**m Y_(k-1) + ends[k] after Y_(-1) = state, by groups
@@ -217,7 +205,7 @@ class _GroupedFrames:
         last = state
         if groups:
             grid = frame_out[1 : 1 + groups * g].reshape(groups, g)
-            _products(ends[: groups * g].reshape(groups, g), self.group_toeplitz, grid)
+            matmul_rows(ends[: groups * g].reshape(groups, g), self.group_toeplitz, grid)
             group_out, _ = lfilter([1.0], self.group_den, grid[:, -1],
                                    zi=[-self.group_den[1] * state])
             before = np.empty(groups)
@@ -647,9 +635,9 @@ class TimeWeightingSet:
     def members(self) -> dict[str, TimeWeighting]:
         """The single :class:`TimeWeighting` of each weighting; they hold the set's state.
 
-        A block given to a member advances that weighting alone (by its own 32-sample
-        frames, to the same accuracy), and the set goes on from the state it leaves; the
-        engine's reference computations can read them like separate objects.
+        A block given to a member advances that weighting alone (by the same arithmetic),
+        and the set goes on from the state it leaves; the engine's reference computations
+        can read them like separate objects.
         """
         return dict(self._members)
 
