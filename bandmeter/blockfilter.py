@@ -68,7 +68,8 @@ First-use probe
     :class:`MultiSosFilter` and :class:`SosFilter`); a cascade that deviates by more than
     ``_BLOCK_TOL`` (1e-11 of the probe output) is filtered by sosfilt instead. A verdict
     is kept for the rest of the process (:func:`probe_once`): the next kernel of the same
-    sections takes it without probing again.
+    sections takes it without probing again. Such a kernel takes the first one's matrices
+    too (:data:`_KERNEL_PARTS`), instead of building them again.
 
 Subnormal numbers: filter states below 1e-200 are flushed (set to zero) within and after
 each block, so that digital silence does not leave the arithmetic in slow subnormal numbers.
@@ -288,13 +289,14 @@ class _FrameLevel:
 
     def _band_matrix(self, frames: int) -> np.ndarray:
         """Band storage (Fortran order) of the stacked recurrence, cached per frame count."""
-        if self._band is None or self._band[0] != frames:
+        band = self._band  # one read: kernels of one identity share this object
+        if band is None or band[0] != frames:
             n = self.gain.shape[1]
             seg = np.tile(self.pattern, (1, 1, frames))  # (bands, n+2, n*frames)
             seg[:, :, -n:] = 0.0  # the last frame of a band does not feed the next band
             full = seg.transpose(1, 0, 2).reshape(n + 2, -1)
-            self._band = (frames, np.asfortranarray(full))
-        return self._band[1]
+            band = self._band = (frames, np.asfortranarray(full))
+        return band[1]
 
     def states(self, frames_x: Sequence[np.ndarray], state: np.ndarray) -> np.ndarray:
         """States after each frame of the input entered with ``state`` (bands, n).
@@ -325,6 +327,16 @@ class _FrameLevel:
             n + 1, self._band_matrix(frames), drive.reshape(-1), lower=1, diag=1, overwrite_x=1
         )
         return flush_tiny(tops.reshape(nb, frames, n))
+
+
+#: Systems and matrices of the block kernels built in this process, by
+#: :attr:`_BlockKernel.identity`: a new kernel of the same sections (the next recording's
+#: bank and weighting filters) takes them instead of building them again (about 12 ms per
+#: file with one-third octaves and A and C at 48 kHz, a quarter of a 5 s file's analysis).
+#: At most ``_KERNEL_PARTS_SIZE`` kernels' worth (the oldest is forgotten first); one kernel
+#: holds 0.1 to 3 MB, most of it in the band matrix of its frame recurrence.
+_KERNEL_PARTS: dict[tuple, tuple] = {}
+_KERNEL_PARTS_SIZE = 32
 
 
 class _BlockKernel:
@@ -378,19 +390,35 @@ class _BlockKernel:
         #: of its first-use probe's cached verdict, :func:`probe_once`).
         self.identity = (realise, sub, tuple(
             (np.shape(s), np.asarray(s, dtype=np.float64).tobytes()) for s in soss))
+        self.cols = _OUT_COLS
+        parts = _KERNEL_PARTS.get(self.identity)
+        if parts is None:
+            parts = self._build(soss, realise)
+            while len(_KERNEL_PARTS) >= _KERNEL_PARTS_SIZE:
+                del _KERNEL_PARTS[next(iter(_KERNEL_PARTS))]
+            _KERNEL_PARTS[self.identity] = parts
+        self._systems, self.step, self.out_w, self.final, self._levels = parts
+        self.n_states = self._systems[0][0].shape[0]
+
+    def _build(self, soss: Sequence[np.ndarray], realise: Callable[[np.ndarray], System]
+               ) -> tuple:
+        """The kernel's systems and matrices (see :data:`_KERNEL_PARTS`)."""
         self._systems = [realise(np.asarray(s, dtype=np.float64)) for s in soss]
         self.n_states = n = self._systems[0][0].shape[0]
+        sub = self.sub
         part = [_frame_matrices(ss, sub) for ss in self._systems]
         # [s, x] @ step = next state; [s, x] @ out_w[c] = output columns of chunk c
-        self.step = np.ascontiguousarray(np.stack([np.vstack([p[0].T, p[1].T]) for p in part]))
+        step = np.ascontiguousarray(np.stack([np.vstack([p[0].T, p[1].T]) for p in part]))
         wide = np.stack([np.vstack([p[2].T, p[3].T]) for p in part])  # (bands, n+sub, sub)
-        self.cols = _OUT_COLS
-        self.out_w = [
+        out_w = [
             np.ascontiguousarray(wide[:, : n + c + self.cols, c : c + self.cols])
             for c in range(0, sub, self.cols)
         ]
-        self.final = self._final_matrices([p[1] for p in part])
-        self._levels: dict[int, _FrameLevel] = {}
+        final = self._final_matrices([p[1] for p in part])
+        for a in [step, *out_w, *final]:
+            a.setflags(write=False)  # shared by the kernels of the same identity
+        levels: dict[int, _FrameLevel] = {}  # frame recurrences, built on first use
+        return self._systems, step, out_w, final, levels
 
     def _final_matrices(self, gammas: list[np.ndarray]) -> list[np.ndarray]:
         """Matrices ``W[r]`` with ``[s, x[:r]] @ W[r]`` = the state ``r`` samples into a

@@ -323,3 +323,30 @@ def test_multi_filters_of_the_same_sections_probe_once(monkeypatch: pytest.Monke
     ref = signal.sosfilt(design_sos("A", 44100), x)
     for y in outs:
         assert np.max(np.abs(y - ref)) <= 2e-12 * np.max(np.abs(ref))
+
+
+def test_kernels_of_the_same_sections_share_their_matrices(monkeypatch: pytest.MonkeyPatch
+                                                          ) -> None:
+    # a second kernel of the same computation takes the first one's matrices (read-only) and
+    # filters as sosfilt does (scipy.signal.sosfilt as the reference); other sections, or
+    # another realisation, build their own; the cache is bounded
+    monkeypatch.setattr(bf, "_KERNEL_PARTS", {})
+    a, c = design_sos("A", 48000), design_sos("C", 48000)
+    c4 = bf._pad_sections(c, a.shape[0])
+    first = bf._BlockKernel([a, c4], realise=bf._cascade_state_space)
+    second = bf._BlockKernel([a, c4], realise=bf._cascade_state_space)
+    assert second.step is first.step and second.final is first.final
+    assert not second.step.flags.writeable
+    assert bf._BlockKernel([a, c4]).step is not first.step  # sosfilt's realisation
+    assert bf._BlockKernel([c4, a], realise=bf._cascade_state_space).step is not first.step
+    x = np.random.default_rng(12).standard_normal(70000)
+    for kernel in (first, second):
+        state = np.zeros((2, kernel.n_states))
+        out = np.empty((2, kernel.padded_length(x.size)))
+        kernel.process(x, state, out)
+        for row, sos in zip(out, (a, c), strict=True):
+            ref = signal.sosfilt(sos, x)
+            assert np.max(np.abs(row[: x.size] - ref)) <= 2e-12 * np.max(np.abs(ref))
+    monkeypatch.setattr(bf, "_KERNEL_PARTS_SIZE", 2)
+    bf._BlockKernel([a])
+    assert len(bf._KERNEL_PARTS) == 2
