@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from . import __version__
-from .errors import OutputError
+from .errors import OutputError, SettingsError
 from .outputs import write_text
 from .provenance import now_iso
 
@@ -85,6 +85,27 @@ class Manifest:
         if not isinstance(entries, dict):
             raise OutputError(f"{path}: manifest without entries")
         return cls(path, data.get("settings") or {}, data.get("settings_hash") or "", entries)
+
+    @classmethod
+    def of_finished_batch(cls, out_dir: str, hint: str = "") -> Manifest:
+        """The manifest of an existing batch output folder, for reading its results.
+
+        Raises
+        ------
+        SettingsError
+            The folder has no manifest (the message names the folder, then ``hint``).
+        OutputError
+            As :meth:`load`.
+        """
+        if not os.path.isfile(os.path.join(out_dir, MANIFEST_NAME)):
+            raise SettingsError(f"{out_dir}: not a batch output folder (no {MANIFEST_NAME})"
+                                f"{hint}")
+        return cls.load(out_dir)
+
+    @staticmethod
+    def analysed(entry: dict[str, Any]) -> bool:
+        """Whether a manifest entry is an analysed measurement with a result file."""
+        return entry.get("status") == "ok" and bool(entry.get("result_file"))
 
     def to_dict(self) -> dict[str, Any]:
         return {

@@ -1104,11 +1104,8 @@ def load_plot_input(path: str | os.PathLike[str]) -> list[tuple[str, Mapping[str
 def _batch_inputs(folder: str) -> list[tuple[str, Mapping[str, Any]]]:
     from .manifest import Manifest
 
-    if not os.path.isfile(os.path.join(folder, "manifest.json")):
-        raise SettingsError(f"{folder}: not a batch output folder (no manifest.json)")
-    manifest = Manifest.load(folder)
-    entries = [e for e in manifest.entries.values()
-               if e.get("status") == "ok" and e.get("result_file")]
+    manifest = Manifest.of_finished_batch(folder)
+    entries = [e for e in manifest.entries.values() if Manifest.analysed(e)]
     stems = [_safe_stem(Path(str(e.get("path") or e["id"])).stem) for e in entries]
     out = []
     for entry, stem in zip(entries, stems, strict=True):

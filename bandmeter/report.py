@@ -164,15 +164,13 @@ def load_source(path: str | os.PathLike[str]) -> ReportSource:
     """
     spath = os.fspath(path)
     if os.path.isdir(spath):
-        from .manifest import MANIFEST_NAME, Manifest
+        from .manifest import Manifest
 
-        if not os.path.isfile(os.path.join(spath, MANIFEST_NAME)):
-            raise SettingsError(f"{spath}: not a batch output folder (no {MANIFEST_NAME}); "
-                                "give a batch --out folder or a `levels --json` file")
-        manifest = Manifest.load(spath)
+        manifest = Manifest.of_finished_batch(
+            spath, "; give a batch --out folder or a `levels --json` file")
         measurements, failed = [], []
         for entry in manifest.entries.values():
-            if entry.get("status") == "ok" and entry.get("result_file"):
+            if Manifest.analysed(entry):
                 data = read_json(os.path.join(spath, str(entry["result_file"])))
                 if not isinstance(data, Mapping) or not isinstance(data.get("overall"),
                                                                    Mapping):
