@@ -329,6 +329,13 @@ class _FrameLevel:
         return flush_tiny(tops.reshape(nb, frames, n))
 
 
+def _remember(cache: dict, size: int, key: object, value: object) -> None:
+    """``cache[key] = value``, forgetting the oldest entries to keep at most ``size``."""
+    while len(cache) >= size:
+        del cache[next(iter(cache))]
+    cache[key] = value
+
+
 #: Systems and matrices of the block kernels built in this process, by
 #: :attr:`_BlockKernel.identity`: a new kernel of the same sections (the next recording's
 #: bank and weighting filters) takes them instead of building them again (about 12 ms per
@@ -394,9 +401,7 @@ class _BlockKernel:
         parts = _KERNEL_PARTS.get(self.identity)
         if parts is None:
             parts = self._build(soss, realise)
-            while len(_KERNEL_PARTS) >= _KERNEL_PARTS_SIZE:
-                del _KERNEL_PARTS[next(iter(_KERNEL_PARTS))]
-            _KERNEL_PARTS[self.identity] = parts
+            _remember(_KERNEL_PARTS, _KERNEL_PARTS_SIZE, self.identity, parts)
         self._systems, self.step, self.out_w, self.final, self._levels = parts
         self.n_states = self._systems[0][0].shape[0]
 
@@ -572,9 +577,8 @@ def probe_once(
     key = (probe, kernel.identity,
            tuple((np.shape(s), np.asarray(s, dtype=np.float64).tobytes()) for s in soss))
     if key not in _PROBE_CACHE:
-        while len(_PROBE_CACHE) >= _PROBE_CACHE_SIZE:
-            del _PROBE_CACHE[next(iter(_PROBE_CACHE))]
-        _PROBE_CACHE[key] = np.array(probe(kernel, soss), dtype=np.float64)
+        verdict = np.array(probe(kernel, soss), dtype=np.float64)
+        _remember(_PROBE_CACHE, _PROBE_CACHE_SIZE, key, verdict)
     return _PROBE_CACHE[key].copy()
 
 

@@ -148,7 +148,6 @@ def run_plain_scipy(path: str) -> None:
 
 
 def run_plain_reduced(path: str) -> None:
-    sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
     from bench_levels import run_plain_scipy as reduced
 
     reduced(path, bands=True)
