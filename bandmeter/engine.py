@@ -49,7 +49,7 @@ import numpy as np
 from .audio import Recording
 from .errors import SettingsError
 from .intervals import IntervalPlan
-from .levels import LevelHistogram, db_from_power_ratio
+from .levels import LevelHistogram, db_from_power_ratio, exceeded_levels
 from .peak import TruePeakMeter
 from .provenance import file_sha256, tool_stamp
 from .results import (
@@ -292,6 +292,11 @@ class _Accumulators:
 #: Longest run summed by one BLAS dot product in :func:`_sum_squares` (OpenBLAS splits
 #: longer ones over threads, whose start-up and spinning cost more than they save here).
 _DOT_RUN = 8192
+
+
+#: Band outputs that span at least this many interval boundaries are split into intervals
+#: by :func:`_band_segments` (vectorised) instead of one boundary at a time.
+_MANY_PIECES = 8
 
 
 def _sum_squares(v: np.ndarray) -> float:
@@ -611,27 +616,22 @@ class LevelEngine:
     def _interval_percentiles(self, lo: int, hi: int) -> np.ndarray:
         """Percentile levels of the open interval (counts at indices ``lo .. hi``).
 
-        :meth:`LevelHistogram.exceeded` of a histogram trimmed to the occupied bins: the same
-        counts and interpolation, the bin edges offset by a whole number of bins (they agree
-        with the full histogram's to rounding, about 1e-13 dB). With values in the overflow
-        bin the full histogram is used (its top edge is the reported bound).
+        :meth:`LevelHistogram.exceeded` of the histogram trimmed to the occupied bins
+        ``first .. last``, read in place: the counts at ``first - 1`` and ``last + 1`` serve
+        as its underflow and overflow counts (they are zero unless ``first - 1`` is the
+        underflow bin itself). The same counts and interpolation, the bin edges offset by a
+        whole number of bins (they agree with the full histogram's to rounding, about 1e-13
+        dB). With values in the overflow bin the full histogram is used (its top edge is the
+        reported bound).
         """
         proto, counts = self._hist_proto, self._hist_counts
         first, last = max(lo, 1), min(hi, proto.nbins)  # occupied bins (1 .. nbins)
         res = proto.resolution_db
-        trimmed = None
         if hi <= proto.nbins and first <= last:
-            low = proto.low_db + (first - 1) * res
-            trimmed = LevelHistogram(res, low, low + (last - first + 0.5) * res)
-            if trimmed.nbins != last - first + 1:  # pragma: no cover - rounding guard
-                trimmed = None
-        if trimmed is None:
-            trimmed = proto.copy_empty()
-            trimmed.counts[:] = counts
+            view, low = counts[first - 1 : last + 2], proto.low_db + (first - 1) * res
         else:
-            trimmed.counts[0] = counts[0]
-            trimmed.counts[1:-1] = counts[first : last + 1]
-        return trimmed.exceeded(self.settings.percentiles)
+            view, low = counts, proto.low_db
+        return np.array(exceeded_levels(view, low, res, self.settings.percentiles))
 
     def _store_peaks(self, peaks_c: dict[int, float], peaks_z: dict[int, float]) -> None:
         for name, peaks in (("peak_c", peaks_c), ("peak_z", peaks_z)):
@@ -715,6 +715,11 @@ class LevelEngine:
             if k_hi >= sums.shape[0]:
                 acc.ensure(k_hi)
                 sums = acc["band_sum"]
+            if k_hi - k_lo >= _MANY_PIECES:  # a held stage's output: split it vectorised
+                seg, ids = _band_segments(plan, j0, d, shift, m, lo_t, hi_t)
+                sums[ids, j] += _segment_sums_of_squares(y, seg) * d
+                state.position += m
+                continue
             start = 0
             for k in range(k_lo, k_hi + 1):
                 stop = m

@@ -136,6 +136,54 @@ def leq_from_sel(sel_db: ArrayLike, duration_s: ArrayLike) -> np.ndarray:
     return np.asarray(sel_db, dtype=np.float64) - db_from_power_ratio(t / T0_S)
 
 
+def exceeded_levels(
+    counts: np.ndarray, low_db: float, resolution_db: float, percents: Sequence[float]
+) -> list[float]:
+    """Percentile levels LN of histogram counts (:meth:`LevelHistogram.exceeded`'s arithmetic).
+
+    Parameters
+    ----------
+    counts : ndarray of int, shape (nbins + 2,)
+        Underflow count, the counts of ``nbins`` bins of ``resolution_db`` from ``low_db``
+        up, overflow count.
+    low_db, resolution_db : float
+        Bottom of the first bin and bin width, dB.
+    percents : sequence of float
+        N in percent, each in [0, 100] (not checked here).
+
+    Returns
+    -------
+    list of float
+        Levels in dB: interpolated within the bin as if its values were evenly spread;
+        ``-inf`` in the underflow bin, the top of the bins (``low_db + nbins *
+        resolution_db``) in the overflow bin; NaN for an empty histogram.
+    """
+    from_bottom = np.cumsum(counts[::-1])  # from_bottom[j]: values in bins >= size - 1 - j
+    size = counts.size
+    total = int(from_bottom[-1])
+    if total == 0:
+        return [math.nan] * len(percents)
+    nbins = size - 2
+    high_db = low_db + nbins * resolution_db
+    lowest = size - 1 - int(np.searchsorted(from_bottom, total, side="left"))  # occupied
+    targets = [p / 100.0 * total for p in percents]  # values above the wanted level
+    # the highest bin i whose values and those above it number more than the target
+    firsts = np.searchsorted(from_bottom, targets, side="right").tolist()
+    out = []
+    for target, j in zip(targets, firsts, strict=True):
+        i = max(size - 1 - j, lowest)
+        above = int(from_bottom[size - 2 - i]) if i + 1 < size else 0
+        inside = int(counts[i])
+        frac = min(max((target - above) / inside, 0.0), 1.0) if inside > 0 else 0.0
+        if i == 0:
+            out.append(-math.inf)
+        elif i == nbins + 1:
+            out.append(high_db)
+        else:
+            out.append(low_db + (i - 1) * resolution_db + (1.0 - frac) * resolution_db)
+    return out
+
+
 class LevelHistogram:
     """Fine histogram of levels, for percentile levels LN in constant memory.
 
@@ -254,23 +302,6 @@ class LevelHistogram:
         n = np.asarray(percents, dtype=np.float64)
         if ((n < 0) | (n > 100) | np.isnan(n)).any():
             raise SettingsError(f"percentiles must lie in [0, 100], got {percents!r}")
-        total = self.total
-        if total == 0:
-            return np.full(n.shape, np.nan)
-        counts = self.counts
-        cum_from_top = np.cumsum(counts[::-1])[::-1]  # values in bins >= i
-        target = np.atleast_1d(n / 100.0 * total)  # number of values above the wanted level
-        # the highest bin i with cum_from_top[i] > target contains the level
-        i = np.searchsorted(-cum_from_top, -target, side="left") - 1
-        i = np.maximum(i, int(np.flatnonzero(counts)[0]))
-        above = np.where(i + 1 < counts.size, cum_from_top[np.minimum(i + 1, counts.size - 1)],
-                         0)
-        inside = counts[i]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            frac = np.clip(np.where(inside > 0, (target - above) / inside, 0.0), 0.0, 1.0)
-        bin_low = self.low_db + (i - 1) * self.resolution_db
-        out = bin_low + (1.0 - frac) * self.resolution_db
-        out = np.where(i == 0, -math.inf, out)
-        out = np.where(i == self.nbins + 1, self.high_db, out)
-        out = out.reshape(n.shape)
-        return out
+        levels = exceeded_levels(self.counts, self.low_db, self.resolution_db,
+                                 np.atleast_1d(n).ravel().tolist())
+        return np.array(levels).reshape(n.shape)

@@ -153,16 +153,18 @@ def test_band_results_do_not_depend_on_block_size(block):
                 assert (math.isnan(va) and math.isnan(vb)) or abs(va - vb) < 1e-6
 
 
-@pytest.mark.parametrize("block", [4097, 131072])
-def test_band_energy_fast_path_matches_the_general_path(block):
+@pytest.mark.parametrize(("block", "interval_s", "intervals"),
+                         [(4097, 0.35, 7), (131072, 0.35, 7), (131072, 0.1, 23)])
+def test_band_energy_fast_path_matches_the_general_path(block, interval_s, intervals):
     # without band maxima or a history the engine assigns band samples to intervals by
-    # integer arithmetic (LevelEngine._add_band_energy); with band maxima it takes the
-    # general per-segment path: the band Leq of every interval must agree (same energy,
-    # summed in another order; 1e-9 dB is far below any reporting resolution)
+    # integer arithmetic (LevelEngine._add_band_energy; a held stage's output spanning 8
+    # or more boundaries, as with 0.1 s intervals, vectorised); with band maxima it takes
+    # the general per-segment path: the band Leq of every interval must agree (same
+    # energy, summed in another order; 1e-9 dB is far below any reporting resolution)
     x = pink_noise(int(2.3 * FS), FS, seed=11)
-    common = dict(bands=3, interval_s=0.35, block_frames=block)
+    common = dict(bands=3, interval_s=interval_s, block_frames=block)
     fast = analyse_array(x, FS, AnalysisSettings(**common), L_FS)[1]
     general = analyse_array(x, FS, AnalysisSettings(**common, band_max=True), L_FS)[1]
-    assert len(fast) == len(general) == 7
+    assert len(fast) == len(general) == intervals
     for a, b in zip(fast, general, strict=True):
         np.testing.assert_allclose(band_levels(a), band_levels(b), rtol=0, atol=1e-9)

@@ -15,6 +15,7 @@ from bandmeter.levels import (
     LevelHistogram,
     average_levels,
     combine_levels,
+    exceeded_levels,
     leq_from_sel,
     pressure_from_spl,
     sel_from_leq,
@@ -150,3 +151,21 @@ def test_histogram_merge():
     assert a.total == 3
     with pytest.raises(SettingsError):
         a.merge(LevelHistogram(0.1))
+
+
+def test_exceeded_levels_through_a_window_of_the_occupied_bins():
+    # the engine reads each interval's percentiles from the occupied bins of its histogram,
+    # in place (bandmeter.engine LevelEngine._interval_percentiles): the counts just
+    # outside the window, zero, stand for the underflow and overflow bins. Reference: the
+    # whole histogram's LN (same interpolation; the bin edges differ by rounding only)
+    rng = np.random.default_rng(3)
+    hist = LevelHistogram(0.01, -400.0, 60.0)
+    hist.add_levels(rng.normal(-35.0, 4.0, 20_000))
+    occupied = np.flatnonzero(hist.counts)
+    first, last = int(occupied[0]), int(occupied[-1])
+    window = hist.counts[first - 1 : last + 2]
+    low = hist.low_db + (first - 1) * hist.resolution_db
+    n = [0.0, 1.0, 10.0, 50.0, 90.0, 99.0, 100.0]
+    got = exceeded_levels(window, low, hist.resolution_db, n)
+    np.testing.assert_allclose(got, hist.exceeded(n), rtol=0, atol=1e-9)
+    assert math.isnan(exceeded_levels(np.zeros(5, dtype=np.int64), 0.0, 1.0, [50.0])[0])
