@@ -358,8 +358,12 @@ def run_batch(
             signal.signal(signal.SIGTERM, previous_handler)
     ids = [job.id for job in jobs]
     entries = [manifest.entries[i] for i in ids if i in manifest.entries]
-    if not os.path.exists(manifest.path):  # interrupted before the first result: the tables
-        manifest.save()  # below still mark the folder as ours for the rerun
+    if report.interrupted or not os.path.exists(manifest.path):
+        # an interrupt may land while the manifest is being saved, after the entry (whose
+        # result file is already written) went into it: save it again, so that it lists
+        # every measurement the tables below hold; before the first result, the saved
+        # manifest still marks the folder as ours for the rerun
+        manifest.save()
     report.tables = write_tables(out_dir, entries, reused)
     return report
 

@@ -133,6 +133,36 @@ def test_interrupted_run_keeps_what_finished(tmp_path, survey):
     assert (rest.analysed, rest.reused) == (2, 1)
 
 
+def test_interrupt_during_manifest_save_keeps_tables_and_manifest_in_step(
+    tmp_path, survey, monkeypatch
+):
+    # A signal that lands while the manifest is saved, after the second measurement's result
+    # file is written and its entry recorded (the saved manifest still lists the first
+    # only): the tables and the manifest must still list the same measurements (common
+    # practice, no source: an index agrees with the data it indexes).
+    from bandmeter.manifest import Manifest
+
+    out = str(tmp_path / "out")
+    real_save = Manifest.save
+    calls = []
+
+    def interrupted_save(self):
+        calls.append(1)
+        if len(calls) == 2:
+            raise KeyboardInterrupt  # as SIGTERM during the second measurement's save
+        real_save(self)
+
+    monkeypatch.setattr(Manifest, "save", interrupted_save)
+    report = run_batch([str(survey)], out, _options())
+    assert report.interrupted
+    summary = _read_csv(os.path.join(out, "summary.csv"))
+    manifest = json.load(open(os.path.join(out, "manifest.json")))
+    assert len(summary) == len(manifest["entries"]) == 2
+    monkeypatch.setattr(Manifest, "save", real_save)
+    rest = run_batch([str(survey)], out, _options())
+    assert (rest.analysed, rest.reused) == (1, 2)
+
+
 def test_a_bad_recording_is_isolated(tmp_path, survey):
     (survey / "day2" / "broken.wav").write_bytes(b"RIFF\x00\x00\x00\x00WAVEjunk")
     out = str(tmp_path / "out")
