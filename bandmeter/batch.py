@@ -358,12 +358,10 @@ def run_batch(
             signal.signal(signal.SIGTERM, previous_handler)
     ids = [job.id for job in jobs]
     entries = [manifest.entries[i] for i in ids if i in manifest.entries]
-    if report.interrupted or not os.path.exists(manifest.path):
-        # an interrupt may land while the manifest is being saved, after the entry (whose
-        # result file is already written) went into it: save it again, so that it lists
-        # every measurement the tables below hold; before the first result, the saved
-        # manifest still marks the folder as ours for the rerun
-        manifest.save()
+    # saved once more whatever happened: an interrupt may have landed during a save, after
+    # the entry (its result file already written) went in, and before the first result the
+    # manifest still marks the folder as ours; the tables below list the same entries
+    manifest.save()
     report.tables = write_tables(out_dir, entries, reused)
     return report
 
