@@ -42,11 +42,13 @@ import platform
 from collections.abc import Iterable, Sequence
 from dataclasses import asdict, dataclass, field
 from datetime import datetime
+from types import ModuleType
 from typing import Any
 
 import numpy as np
 
 from .audio import Recording
+from .compiled import kernels
 from .errors import SettingsError
 from .intervals import IntervalPlan
 from .levels import LevelHistogram, db_from_power_ratio, exceeded_levels
@@ -569,6 +571,10 @@ class LevelEngine:
         ``m <= pos <= 2 m``), so the counts start at bin ``m``.
         """
         proto = self._hist_proto
+        compiled = kernels()
+        if compiled is not None:
+            self._count_levels_compiled(compiled, db_from_power_ratio(f), seg, ids)
+            return
         pos = db_from_power_ratio(f)
         pos -= proto.low_db
         pos /= proto.resolution_db
@@ -599,6 +605,26 @@ class LevelEngine:
             start = base + offset
             self._hist_counts[start : start + counts.size] += counts
             span = (base + lowest_bin, start + counts.size - 1)
+            old = self._hist_span
+            self._hist_span = span if old is None else (min(old[0], span[0]),
+                                                        max(old[1], span[1]))
+
+    def _count_levels_compiled(
+        self, compiled: ModuleType, levels: np.ndarray, seg: np.ndarray, ids: np.ndarray
+    ) -> None:
+        """:meth:`_count_levels` by the compiled kernel (the same bins, counts and spans)."""
+        proto = self._hist_proto
+        edges = np.append(seg, len(levels))
+        for k, lo, hi in zip(ids, edges[:-1], edges[1:], strict=True):
+            if k != self._hist_interval:
+                self._close_histogram()
+                self._hist_interval = int(k)
+            if hi == lo:
+                continue
+            span = compiled.count_levels(levels[lo:hi], proto.low_db, proto.resolution_db,
+                                         proto.nbins, self._hist_counts)
+            if span is None:
+                raise SettingsError("NaN level given to the level histogram")
             old = self._hist_span
             self._hist_span = span if old is None else (min(old[0], span[0]),
                                                         max(old[1], span[1]))

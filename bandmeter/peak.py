@@ -137,6 +137,7 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
 from .blockfilter import matmul_rows
+from .compiled import kernels
 from .errors import AudioError, SettingsError
 from .intervals import IntervalPlan
 
@@ -727,6 +728,13 @@ class TruePeakMeter:
         (shape ``(2, n_tiles)``), and into ``near`` (``n_tiles - 2``) the max |x| over each
         inner tile and the sample on either side; in chunks of up to ``_CHUNK`` samples.
         """
+        compiled = kernels()
+        if (
+            compiled is not None and n_tiles >= 2 and x.flags.c_contiguous
+            and x.dtype == np.float64
+            and compiled.tile_maxima(x, start, n_tiles, tiles[0], tiles[1], near)
+        ):
+            return  # the same values (bandmeter/_kernels.c); else NaN or infinity: below
         work = self._work
         if work is None:
             self._work = work = _Work()

@@ -1,0 +1,218 @@
+"""Tests of the optional compiled kernels (bandmeter/_kernels.c) against the NumPy paths.
+
+Reference: the package's own NumPy implementations of the same steps, which the other test
+modules check against standards and scipy; each kernel repeats their floating-point
+operations in the same order, so every comparison here is exact (``array_equal``, ``==``),
+not within a tolerance. The NumPy side of the tile maxima is checked once more against a
+plain per-tile ``max`` over ``np.abs`` and ``np.diff`` (numpy itself).
+
+Where the extension is not built these tests skip, unless ``BANDMETER_REQUIRE_KERNELS=1``
+(set by CI, which builds it), where its absence is a failure.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pytest
+
+from bandmeter import compiled
+from bandmeter.engine import AnalysisSettings, analyse_array
+from bandmeter.errors import AudioError, SettingsError
+from bandmeter.intervals import IntervalPlan
+from bandmeter.levels import LevelHistogram
+from bandmeter.peak import TruePeakMeter
+
+FS = 48000
+
+if os.environ.get("BANDMETER_REQUIRE_KERNELS") == "1":
+    _skip = pytest.mark.skipif(False, reason="")
+else:
+    _skip = pytest.mark.skipif(not compiled.available(), reason="compiled kernels not built")
+pytestmark = _skip
+
+
+def test_extension_is_built() -> None:
+    assert compiled.available(), "bandmeter._kernels is not built (no C compiler at install?)"
+    assert compiled.kernels() is not None or os.environ.get("BANDMETER_NUMPY_ONLY") == "1"
+
+
+def test_numpy_only_switch() -> None:
+    with compiled.numpy_only():
+        assert compiled.kernels() is None
+    assert compiled.kernels() is not None
+
+
+# -- tile maxima of the true-peak meter ---------------------------------------------------
+
+
+def _numpy_tile_pass(x: np.ndarray, start: int, n_tiles: int) -> tuple[np.ndarray, ...]:
+    meter = TruePeakMeter(FS, IntervalPlan(None))
+    tiles = np.full((2, n_tiles), -1.0)
+    near = np.full(n_tiles - 2, -1.0)
+    with compiled.numpy_only():
+        meter._tile_pass(x, start, n_tiles, tiles, near)
+    return tiles, near
+
+
+def _compiled_tile_pass(x: np.ndarray, start: int, n_tiles: int) -> tuple[np.ndarray, ...]:
+    tiles = np.full((2, n_tiles), -1.0)
+    near = np.full(n_tiles - 2, -1.0)
+    assert compiled.kernels().tile_maxima(x, start, n_tiles, tiles[0], tiles[1], near)
+    return tiles, near
+
+
+@pytest.mark.parametrize("kind", ["noise", "tiny", "mixed", "zeros", "steps"])
+@pytest.mark.parametrize("start,n_tiles", [(1, 2), (16, 3), (17, 40), (33, 4097), (5, 9000)])
+def test_tile_maxima_identical_to_numpy(kind: str, start: int, n_tiles: int) -> None:
+    rng = np.random.default_rng(start * 7 + n_tiles)
+    n = start + 16 * n_tiles + 1 + int(rng.integers(0, 5))
+    x = {
+        "noise": rng.standard_normal(n),
+        "tiny": rng.standard_normal(n) * 1e-310,  # subnormal
+        "mixed": rng.standard_normal(n) * 10.0 ** rng.uniform(-300, 300, n),
+        "zeros": np.zeros(n),
+        "steps": np.repeat(rng.choice([-1.0, 0.0, 1.0], n // 7 + 1), 7)[:n],
+    }[kind]
+    tiles_np, near_np = _numpy_tile_pass(x, start, n_tiles)
+    tiles_c, near_c = _compiled_tile_pass(x, start, n_tiles)
+    assert np.array_equal(tiles_c, tiles_np)
+    assert np.array_equal(near_c, near_np)
+    # and the NumPy side against a plain per-tile maximum (numpy's abs, diff and max)
+    i = np.arange(start, start + 16 * n_tiles)
+    d2 = np.abs((x[i - 1] - 2.0 * x[i]) + x[i + 1])
+    assert np.array_equal(tiles_np[0], np.abs(x[i]).reshape(n_tiles, 16).max(axis=1))
+    assert np.array_equal(tiles_np[1], d2.reshape(n_tiles, 16).max(axis=1))
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+@pytest.mark.parametrize("where", [0, 1, 40, 16 * 10 + 1])  # the sample before, inside, after
+def test_tile_maxima_reports_non_finite(bad: float, where: int) -> None:
+    x = np.random.default_rng(3).standard_normal(16 * 10 + 2)
+    x[where] = bad
+    tiles = np.empty((2, 10))
+    assert not compiled.kernels().tile_maxima(x, 1, 10, tiles[0], tiles[1], np.empty(8))
+
+
+def test_tile_maxima_refuses_bad_arguments() -> None:
+    k = compiled.kernels()
+    x = np.zeros(16 * 4 + 2)
+    t = np.empty((2, 4))
+    with pytest.raises(ValueError):
+        k.tile_maxima(x, 1, 5, t[0], t[1], np.empty(3))  # x too short for 5 tiles
+    with pytest.raises(ValueError):
+        k.tile_maxima(x, 0, 4, t[0], t[1], np.empty(2))  # no sample before the first tile
+    with pytest.raises(ValueError):
+        k.tile_maxima(x, 1, 4, t[0], t[1], np.empty(1))  # near too short
+    with pytest.raises(TypeError):
+        k.tile_maxima(x.astype(np.float32), 1, 4, t[0], t[1], np.empty(2))
+    with pytest.raises(ValueError, match="contiguous"):
+        k.tile_maxima(np.zeros(200)[::2], 1, 4, t[0], t[1], np.empty(2))  # not contiguous
+
+
+def _meter_peaks(x: np.ndarray, interval_s: float | None) -> dict[int, float]:
+    plan = IntervalPlan(round(interval_s * FS) if interval_s else None)
+    meter = TruePeakMeter(FS, plan)
+    for block in np.array_split(x, 7):
+        meter.process(block)
+    return meter.finish()
+
+
+@pytest.mark.parametrize("interval_s", [None, 0.1, 0.25])
+def test_true_peaks_identical_with_and_without_kernels(interval_s: float | None) -> None:
+    rng = np.random.default_rng(11)
+    t = np.arange(FS) / FS
+    x = np.concatenate([
+        rng.standard_normal(FS // 2) * 0.1,  # noise
+        0.5 * np.sin(2 * np.pi * 8000 * t[: FS // 4] + 0.3),  # a steady tone: many ties
+        np.zeros(FS // 8),  # digital silence
+        np.cumsum(rng.standard_normal(FS // 8)) * 1e-3,  # low-frequency wander
+    ])
+    with compiled.numpy_only():
+        expected = _meter_peaks(x, interval_s)
+    assert _meter_peaks(x, interval_s) == expected
+
+
+def test_non_finite_sample_still_refused_with_kernels() -> None:
+    x = np.random.default_rng(5).standard_normal(FS // 2)
+    x[FS // 4] = np.nan
+    with pytest.raises(AudioError, match="non-finite"):
+        _meter_peaks(x, 0.1)
+
+
+# -- level histogram ------------------------------------------------------------------------
+
+
+def _levels_with_edge_cases(rng: np.random.Generator, low: float, res: float,
+                            nbins: int) -> np.ndarray:
+    edges = low + res * rng.integers(-3, nbins + 3, 2000)  # exactly on (rounded) bin edges
+    return np.concatenate([
+        rng.uniform(low - 5.0, low + res * nbins + 5.0, 20000),  # beyond both ends too
+        edges, np.nextafter(edges, -np.inf), np.nextafter(edges, np.inf),
+        np.repeat(rng.uniform(low, low + 1.0, 30), 200),  # runs of one bin
+        [-np.inf, np.inf, low, low + res * nbins, -1e308, 1e308, -0.0],
+    ])
+
+
+@pytest.mark.parametrize("low,res,nbins", [(-400.0, 0.01, 46000), (-20.0, 0.1, 300),
+                                           (0.0, 1.0, 1), (-3.0, 0.37, 17)])
+def test_count_levels_identical_to_level_histogram(low: float, res: float, nbins: int) -> None:
+    rng = np.random.default_rng(nbins)
+    levels = _levels_with_edge_cases(rng, low, res, nbins)
+    reference = LevelHistogram(res, low, low + res * nbins)
+    assert reference.nbins == nbins
+    with np.errstate(over="ignore"):  # 1e308 - low overflows to inf: the overflow bin
+        reference.add_levels(levels)
+    counts = np.zeros(nbins + 2, dtype=np.int64)
+    lowest, highest = compiled.kernels().count_levels(levels, low, res, nbins, counts)
+    assert np.array_equal(counts, reference.counts)
+    occupied = np.flatnonzero(reference.counts)
+    assert (lowest, highest) == (occupied[0], occupied[-1])
+    # counts are added to what is there
+    compiled.kernels().count_levels(levels[:100], low, res, nbins, counts)
+    reference.add_levels(levels[:100])
+    assert np.array_equal(counts, reference.counts)
+
+
+def test_count_levels_reports_nan_and_refuses_bad_arguments() -> None:
+    k = compiled.kernels()
+    counts = np.zeros(12, dtype=np.int64)
+    assert k.count_levels(np.array([1.0, np.nan, 2.0]), 0.0, 1.0, 10, counts) is None
+    with pytest.raises(ValueError):
+        k.count_levels(np.zeros(3), 0.0, 1.0, 11, counts)  # counts too short
+    with pytest.raises(ValueError):
+        k.count_levels(np.zeros(3), 0.0, 0.0, 10, counts)  # no bin width
+    with pytest.raises(TypeError):
+        k.count_levels(np.zeros(3), 0.0, 1.0, 10, counts.astype(np.int32))
+    with pytest.raises(TypeError):
+        k.count_levels(np.zeros(3, dtype=np.float32), 0.0, 1.0, 10, counts)
+
+
+# -- the whole analysis ---------------------------------------------------------------------
+
+
+def _analysis(x: np.ndarray) -> list[dict]:
+    settings = AnalysisSettings(interval_s=0.25, bands=3)
+    overall, intervals = analyse_array(x, FS, settings, full_scale_level_db=120.0)
+    return [overall.to_dict()] + [r.to_dict() for r in intervals]
+
+
+def test_analysis_identical_with_and_without_kernels() -> None:
+    rng = np.random.default_rng(2)
+    t = np.arange(3 * FS) / FS
+    x = 0.05 * rng.standard_normal(t.size) + 0.2 * np.sin(2 * np.pi * 1000 * t)
+    x[FS : FS + FS // 4] *= 8.0  # an event
+    x[2 * FS : 2 * FS + 4800] = 0.0  # a dropout
+    with compiled.numpy_only():
+        expected = _analysis(x)
+    got = _analysis(x)
+    assert len(got) == 13
+    assert got == expected
+
+
+def test_nan_level_still_refused_with_kernels() -> None:
+    x = np.random.default_rng(4).standard_normal(FS)
+    x[FS // 2] = np.nan
+    with pytest.raises((SettingsError, AudioError)):
+        _analysis(x)
