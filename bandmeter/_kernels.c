@@ -1,10 +1,12 @@
 /*
  * Compiled inner loops of bandmeter (optional extension module ``bandmeter._kernels``).
  *
- * Each function here does exactly what a NumPy path in the package does, with the same
- * floating-point operations in the same order, so the results are the same to the last bit;
- * the package uses the NumPy path when this module is not built, and the tests compare the
- * two. Arrays are passed through the buffer protocol (C-contiguous float64); the Python
+ * tile_maxima and count_levels do exactly what a NumPy path in the package does, with the
+ * same floating-point operations in the same order, so the results are the same to the last
+ * bit; time_weighting runs the exponential averagers as the recursion itself (the bits of
+ * scipy.signal.lfilter), which the NumPy path's block formulation matches to 1e-13
+ * relative. The package uses the NumPy paths when this module is not built, and the tests
+ * compare the two. Arrays are passed through the buffer protocol (C-contiguous float64); the Python
  * caller checks shapes and dtypes, this file checks every index against the buffer sizes.
  *
  * Built with -ffp-contract=off: no fused multiply-adds, so that every operation rounds as
@@ -235,6 +237,276 @@ static PyObject *count_levels(PyObject *self, PyObject *args)
     return Py_BuildValue("nn", lowest, highest);
 }
 
+/*
+ * Exponential time weightings of one squared signal, with per-segment extremes
+ * (bandmeter.timeweight.TimeWeightingSet.extremes).
+ *
+ * Up to MAX_CHAINS averagers y_j[n] = b_j x[n] + a_j y_j[n-1], each exactly as
+ * scipy.signal.lfilter([b], [1, -a], x, zi=[a y]) computes it (one product of each kind and
+ * their sum, rounded in that order). A chain may be followed by a peak hold
+ * held[n] = max(y_j[n], d held[n-1]). The hold is kept as the value p it last took from the
+ * averager and its age m in samples, held[n] = p d^m with d^m from the table decay[m] (the
+ * NumPy detector's own table of exp(m ln d)), so a long decay is rounded once per value, not
+ * once per sample; past the table's end p is re-based (p d^(size-1), one rounding per
+ * table length). For each segment [edges[s], edges[s+1]) the largest and smallest value of
+ * each chain's output (the held value where there is a hold) go to
+ * maxima[j * n_segments + s] and minima[...]; a chain's per-sample output is stored when
+ * out[j] is given. Held values below 1e-200 are flushed to 0 at the end of every segment,
+ * as the NumPy detector does (no slow subnormal state); the averagers' states are the
+ * caller's (it flushes them between blocks).
+ *
+ * Returns 0, or -1 (nothing stored in states and held) on a negative or NaN sample.
+ */
+#define MAX_CHAINS 3
+#define HOLD_FLOOR 1e-200
+
+typedef struct {
+    const double *decay; /* decay[m] = d^m, decay[0] = 1 */
+    Py_ssize_t size;     /* entries in decay (>= 2) */
+} HoldTable;
+
+/* One sample of a hold: the held value, given the averager's output w. */
+static inline double hold_step(double w, double *p, Py_ssize_t *m, const HoldTable *t)
+{
+    Py_ssize_t age = *m + 1;
+    double base = *p;
+    if (age == t->size) { /* re-base at the end of the table */
+        base = base * t->decay[t->size - 1];
+        age = 1;
+    }
+    double decayed = base * t->decay[age];
+    int rise = w > decayed;
+    *p = rise ? w : base;
+    *m = rise ? 0 : age;
+    return rise ? w : decayed;
+}
+
+static int time_weighting_loop(const double *x, const long long *edges, Py_ssize_t n_segments,
+                               int k, const double *a, const double *b, const int *hold,
+                               const HoldTable *table, double *state, double *held,
+                               double **out, double *maxima, double *minima)
+{
+    double y[MAX_CHAINS], p[MAX_CHAINS];
+    Py_ssize_t age[MAX_CHAINS];
+    for (int j = 0; j < k; j++) {
+        y[j] = state[j];
+        p[j] = held[j];
+        age[j] = 0;
+    }
+    for (Py_ssize_t s = 0; s < n_segments; s++) {
+        double top[MAX_CHAINS], bottom[MAX_CHAINS], last[MAX_CHAINS];
+        for (int j = 0; j < k; j++) {
+            top[j] = -HUGE_VAL;
+            bottom[j] = HUGE_VAL;
+            last[j] = 0.0;
+        }
+        int bad = 0;
+        for (long long i = edges[s]; i < edges[s + 1]; i++) {
+            double v = x[i];
+            bad |= !(v >= 0.0);
+            for (int j = 0; j < k; j++) {
+                double w = b[j] * v + a[j] * y[j];
+                y[j] = w;
+                if (hold[j])
+                    w = hold_step(w, &p[j], &age[j], table);
+                if (out[j] != NULL)
+                    out[j][i] = w;
+                top[j] = w > top[j] ? w : top[j];
+                bottom[j] = w < bottom[j] ? w : bottom[j];
+                last[j] = w;
+            }
+        }
+        if (bad)
+            return -1;
+        for (int j = 0; j < k; j++) {
+            maxima[j * n_segments + s] = top[j];
+            minima[j * n_segments + s] = bottom[j];
+            if (hold[j] && !(last[j] >= HOLD_FLOOR)) {
+                p[j] = 0.0;
+                age[j] = 0;
+            }
+        }
+    }
+    for (int j = 0; j < k; j++) {
+        state[j] = y[j];
+        if (hold[j])
+            held[j] = p[j] * table->decay[age[j]];
+    }
+    return 0;
+}
+
+/* The loop above for the engine's case, F and S stored and I held, written out so that the
+ * compiler keeps everything in registers (the same operations in the same order). */
+static int time_weighting_fsi(const double *x, const long long *edges, Py_ssize_t n_segments,
+                              const double *a, const double *b, const HoldTable *table,
+                              double *state, double *held, double *out_f, double *out_s,
+                              double *maxima, double *minima)
+{
+    double yf = state[0], ys = state[1], yi = state[2], p = held[2], h = 0.0;
+    Py_ssize_t age = 0;
+    const double af = a[0], bf = b[0], as = a[1], bs = b[1], ai = a[2], bi = b[2];
+    for (Py_ssize_t s = 0; s < n_segments; s++) {
+        double top_f = -HUGE_VAL, low_f = HUGE_VAL, top_s = -HUGE_VAL, low_s = HUGE_VAL;
+        double top_i = -HUGE_VAL, low_i = HUGE_VAL;
+        int bad = 0;
+        for (long long i = edges[s]; i < edges[s + 1]; i++) {
+            double v = x[i];
+            bad |= !(v >= 0.0);
+            yf = bf * v + af * yf;
+            ys = bs * v + as * ys;
+            yi = bi * v + ai * yi;
+            h = hold_step(yi, &p, &age, table);
+            out_f[i] = yf;
+            out_s[i] = ys;
+            top_f = yf > top_f ? yf : top_f;
+            low_f = yf < low_f ? yf : low_f;
+            top_s = ys > top_s ? ys : top_s;
+            low_s = ys < low_s ? ys : low_s;
+            top_i = h > top_i ? h : top_i;
+            low_i = h < low_i ? h : low_i;
+        }
+        if (bad)
+            return -1;
+        maxima[s] = top_f;
+        minima[s] = low_f;
+        maxima[n_segments + s] = top_s;
+        minima[n_segments + s] = low_s;
+        maxima[2 * n_segments + s] = top_i;
+        minima[2 * n_segments + s] = low_i;
+        if (!(h >= HOLD_FLOOR)) {
+            p = 0.0;
+            age = 0;
+        }
+    }
+    state[0] = yf;
+    state[1] = ys;
+    state[2] = yi;
+    held[2] = p * table->decay[age];
+    return 0;
+}
+
+static PyObject *time_weighting(PyObject *self, PyObject *args)
+{
+    PyObject *x_obj, *edges_obj, *coef_obj, *state_obj, *held_obj, *table_obj, *outs_obj,
+        *max_obj, *min_obj;
+    (void)self;
+    if (!PyArg_ParseTuple(args, "OOOOOOOOO", &x_obj, &edges_obj, &coef_obj, &state_obj,
+                          &held_obj, &table_obj, &outs_obj, &max_obj, &min_obj))
+        return NULL;
+    if (!PyTuple_Check(outs_obj)) {
+        PyErr_SetString(PyExc_TypeError, "outputs must be a tuple of arrays or None");
+        return NULL;
+    }
+    Py_buffer x, edges, coef, state, held, table, maxima, minima;
+    Py_buffer outs[MAX_CHAINS];
+    int n_outs = 0, got = 0;
+    PyObject *result = NULL;
+    if (float64_buffer(x_obj, &x, 0, "x") < 0)
+        return NULL;
+    got = 1;
+    if (PyObject_GetBuffer(edges_obj, &edges, PyBUF_C_CONTIGUOUS | PyBUF_FORMAT) < 0)
+        goto done;
+    got = 2;
+    if (float64_buffer(coef_obj, &coef, 0, "coefficients") < 0)
+        goto done;
+    got = 3;
+    if (float64_buffer(state_obj, &state, 1, "states") < 0)
+        goto done;
+    got = 4;
+    if (float64_buffer(held_obj, &held, 1, "held") < 0)
+        goto done;
+    got = 5;
+    if (float64_buffer(max_obj, &maxima, 1, "maxima") < 0)
+        goto done;
+    got = 6;
+    if (float64_buffer(min_obj, &minima, 1, "minima") < 0)
+        goto done;
+    got = 7;
+    if (float64_buffer(table_obj, &table, 0, "decay") < 0)
+        goto done;
+    got = 8;
+    Py_ssize_t n = x.len / 8;
+    int k = (int)(state.len / 8);
+    Py_ssize_t n_edges = edges.len / 8, n_segments = n_edges - 1;
+    if (edges.itemsize != 8 || edges.format == NULL
+        || (strcmp(edges.format, "l") != 0 && strcmp(edges.format, "q") != 0)) {
+        PyErr_SetString(PyExc_TypeError, "edges must hold int64 values");
+        goto done;
+    }
+    if (k < 1 || k > MAX_CHAINS || PyTuple_GET_SIZE(outs_obj) != k || coef.len / 8 != 3 * k
+        || held.len / 8 != k || n_segments < 1 || maxima.len / 8 < k * n_segments
+        || minima.len / 8 < k * n_segments || table.len / 8 < 2) {
+        PyErr_SetString(PyExc_ValueError, "time_weighting: inconsistent array sizes");
+        goto done;
+    }
+    const long long *e = (const long long *)edges.buf;
+    if (e[0] != 0 || e[n_segments] != n) {
+        PyErr_SetString(PyExc_ValueError, "time_weighting: edges must run from 0 to len(x)");
+        goto done;
+    }
+    for (Py_ssize_t s = 0; s < n_segments; s++) {
+        if (e[s + 1] <= e[s]) {
+            PyErr_SetString(PyExc_ValueError, "time_weighting: edges must increase");
+            goto done;
+        }
+    }
+    double *out[MAX_CHAINS];
+    for (int j = 0; j < k; j++) {
+        PyObject *o = PyTuple_GET_ITEM(outs_obj, j);
+        out[j] = NULL;
+        if (o == Py_None)
+            continue;
+        if (float64_buffer(o, &outs[n_outs], 1, "output") < 0)
+            goto done;
+        n_outs++;
+        if (outs[n_outs - 1].len / 8 < n) {
+            PyErr_SetString(PyExc_ValueError, "time_weighting: output shorter than x");
+            goto done;
+        }
+        out[j] = (double *)outs[n_outs - 1].buf;
+    }
+    const double *c = (const double *)coef.buf; /* rows (a, b, hold) */
+    double a[MAX_CHAINS], b[MAX_CHAINS];
+    int hold[MAX_CHAINS];
+    for (int j = 0; j < k; j++) {
+        a[j] = c[3 * j];
+        b[j] = c[3 * j + 1];
+        hold[j] = c[3 * j + 2] != 0.0;
+    }
+    const HoldTable decay = {(const double *)table.buf, table.len / 8};
+    int status;
+    Py_BEGIN_ALLOW_THREADS
+    if (k == 3 && out[0] && out[1] && !out[2] && !hold[0] && !hold[1] && hold[2])
+        status = time_weighting_fsi((const double *)x.buf, e, n_segments, a, b, &decay,
+                                    (double *)state.buf, (double *)held.buf, out[0], out[1],
+                                    (double *)maxima.buf, (double *)minima.buf);
+    else
+        status = time_weighting_loop((const double *)x.buf, e, n_segments, k, a, b, hold,
+                                     &decay, (double *)state.buf, (double *)held.buf, out,
+                                     (double *)maxima.buf, (double *)minima.buf);
+    Py_END_ALLOW_THREADS
+    result = PyBool_FromLong(status == 0);
+done:
+    for (int j = 0; j < n_outs; j++)
+        PyBuffer_Release(&outs[j]);
+    if (got >= 8)
+        PyBuffer_Release(&table);
+    if (got >= 7)
+        PyBuffer_Release(&minima);
+    if (got >= 6)
+        PyBuffer_Release(&maxima);
+    if (got >= 5)
+        PyBuffer_Release(&held);
+    if (got >= 4)
+        PyBuffer_Release(&state);
+    if (got >= 3)
+        PyBuffer_Release(&coef);
+    if (got >= 2)
+        PyBuffer_Release(&edges);
+    PyBuffer_Release(&x);
+    return result;
+}
+
 static PyMethodDef kernel_methods[] = {
     {"tile_maxima", tile_maxima, METH_VARARGS,
      "tile_maxima(x, start, n_tiles, tiles_abs, tiles_d2, near) -> bool\n\n"
@@ -243,6 +515,12 @@ static PyMethodDef kernel_methods[] = {
      "count_levels(levels, low_db, resolution_db, nbins, counts) -> (lowest, highest) | None\n\n"
      "Add levels (dB) to histogram counts (int64, nbins + 2 with under- and overflow);\n"
      "the lowest and highest index counted, or None on a NaN level (counts incomplete)."},
+    {"time_weighting", time_weighting, METH_VARARGS,
+     "time_weighting(x, edges, coefficients, states, held, decay, outputs, maxima, minima)"
+     " -> bool\n\n"
+     "Exponential averagers (rows a, b, hold of coefficients; hold != 0 adds a peak hold\n"
+     "decaying by the table decay[m] = d**m) with\n"
+     "per-segment maxima and minima; False (states untouched) on a negative or NaN sample."},
     {NULL, NULL, 0, NULL},
 };
 

@@ -545,13 +545,13 @@ class LevelEngine:
         """Time-weighted extremes, level distribution and peaks of settled samples."""
         acc = self.acc
         seg, ids = self._segments(start, len(x))
-        full, maxima = self._time_weighting_set.process(a2, seg)
-        f, s, max_i = full["F"], full["S"], maxima["I"]
-        acc["max_f"][ids] = np.maximum(acc["max_f"][ids], np.maximum.reduceat(f, seg))
-        acc["min_f"][ids] = np.minimum(acc["min_f"][ids], np.minimum.reduceat(f, seg))
-        acc["max_s"][ids] = np.maximum(acc["max_s"][ids], np.maximum.reduceat(s, seg))
-        acc["min_s"][ids] = np.minimum(acc["min_s"][ids], np.minimum.reduceat(s, seg))
-        acc["max_i"][ids] = np.maximum(acc["max_i"][ids], max_i)
+        full, maxima, minima = self._time_weighting_set.extremes(a2, seg)
+        f, s = full["F"], full["S"]
+        acc["max_f"][ids] = np.maximum(acc["max_f"][ids], maxima["F"])
+        acc["min_f"][ids] = np.minimum(acc["min_f"][ids], minima["F"])
+        acc["max_s"][ids] = np.maximum(acc["max_s"][ids], maxima["S"])
+        acc["min_s"][ids] = np.minimum(acc["min_s"][ids], minima["S"])
+        acc["max_i"][ids] = np.maximum(acc["max_i"][ids], maxima["I"])
         if self.history is not None:
             self.history.add_levels(start, f, s)
         self._count_levels(f, seg, ids)

@@ -655,3 +655,140 @@ def test_segment_maxima_skip_nothing_that_counts(case: str) -> None:
         np.testing.assert_array_equal(fast.segment_maxima(x, starts),
                                       _unpruned_segment_maxima(slow, x, starts))
         assert fast.mean_square == slow.mean_square
+
+
+# -- TimeWeightingSet.extremes: the compiled recursion and the NumPy path -------------------
+
+
+@pytest.fixture(params=["compiled", "numpy"])
+def extremes_path(request: pytest.FixtureRequest):
+    """Run a test with the compiled kernels (bandmeter/_kernels.c) and without them."""
+    import os
+
+    from bandmeter import compiled
+
+    if request.param == "numpy":
+        with compiled.numpy_only():
+            yield request.param
+        return
+    if not compiled.available() and os.environ.get("BANDMETER_REQUIRE_KERNELS") != "1":
+        pytest.skip("compiled kernels not built")
+    assert compiled.kernels() is not None
+    yield request.param
+
+
+def _lfilter_reference(x: np.ndarray, fs: float, name: str, seed: float) -> np.ndarray:
+    """scipy.signal.lfilter of y[n] = a y[n-1] + (1 - a) x[n] in one call (and for I the
+    peak hold written out, :func:`_peak_hold`)."""
+    from scipy.signal import lfilter
+
+    a = math.exp(-1 / (fs * TAU[name]))
+    ref, _ = lfilter([1.0 - a], [1.0, -a], x, zi=[a * seed])
+    return _peak_hold(ref, seed, fs) if name == "I" else ref
+
+
+@pytest.mark.parametrize("fs", [8000, 48000, 96000])
+def test_set_extremes_match_the_lfilter_recursion(extremes_path: str, fs: int) -> None:
+    # external reference: scipy.signal.lfilter over the whole signal in one call; the engine's
+    # configuration (F and S per sample, I held, maxima only) in blocks of every kind with
+    # segment boundaries inside them; the compiled path is the recursion itself: the very
+    # bits of lfilter for F and S
+    x = _with_silence(_heavy_tailed_squares(fs + 3, 3 * 16384 + 77), fs)
+    seeds = {"F": 0.3, "S": 0.2, "I": 0.4}
+    tws = TimeWeightingSet(fs, ("F", "S", "I"), initial_mean_square=seeds)
+    ref = {name: _lfilter_reference(x, fs, name, seeds[name]) for name in ("F", "S", "I")}
+    rng = np.random.default_rng(fs)
+    sizes = [1, 255, 256, 3000, 20000, 4099]
+    edges = np.cumsum([0, *sizes]).tolist() + [x.size]
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        starts = _random_starts(rng, hi - lo, 4)
+        full, maxima, minima = tws.extremes(x[lo:hi], starts)
+        assert set(full) == set(minima) == {"F", "S"} and set(maxima) == {"F", "S", "I"}
+        for name in ("F", "S", "I"):
+            want = ref[name][lo:hi]
+            top = np.maximum.reduceat(want, starts)
+            np.testing.assert_allclose(maxima[name], top, rtol=1e-13, atol=0)
+            if name == "I":
+                continue
+            if extremes_path == "compiled":
+                np.testing.assert_array_equal(full[name], want)
+                np.testing.assert_array_equal(maxima[name], top)
+            nonzero = want > 0
+            assert np.array_equal(full[name] == 0, ~nonzero)
+            assert np.max(np.abs(full[name][nonzero] / want[nonzero] - 1.0)) <= 1e-13
+            np.testing.assert_allclose(minima[name], np.minimum.reduceat(want, starts),
+                                       rtol=1e-13, atol=0)
+    for name in ("F", "S", "I"):
+        assert tws.mean_square[name] == pytest.approx(ref[name][-1], rel=1e-13)
+
+
+@pytest.mark.parametrize(
+    ("weightings", "maxima_only"),
+    [(("F",), ()), (("I",), ()), (("S", "I"), ("S",)), (("F", "I"), ("F", "I")),
+     (("I", "F", "S"), ("S",))],
+)
+def test_set_extremes_in_other_configurations(
+    extremes_path: str, weightings: tuple[str, ...], maxima_only: tuple[str, ...]
+) -> None:
+    # the same external reference for the sets the engine does not use (the kernel's general
+    # loop): a full I output is the held value; minima for every weighting with full output
+    x = _with_silence(_random_squared(4, 40000), 4)
+    tws = TimeWeightingSet(FS, weightings, initial_mean_square=0.05, maxima_only=maxima_only)
+    ref = {name: _lfilter_reference(x, FS, name, 0.05) for name in weightings}
+    for lo, hi in ((0, 17000), (17000, 40000)):
+        starts = np.array([0, 5000, 11000])
+        full, maxima, minima = tws.extremes(x[lo:hi], starts)
+        assert set(full) == set(minima) == set(weightings) - set(maxima_only)
+        for name in weightings:
+            want = ref[name][lo:hi]
+            np.testing.assert_allclose(maxima[name], np.maximum.reduceat(want, starts),
+                                       rtol=1e-13, atol=0)
+            if name in full:
+                np.testing.assert_allclose(full[name], want, rtol=1e-13, atol=0)
+                np.testing.assert_allclose(minima[name], np.minimum.reduceat(want, starts),
+                                           rtol=1e-13, atol=0)
+
+
+def test_set_extremes_long_hold_decay(extremes_path: str) -> None:
+    # a loud moment, then 40 s of silence: the I hold decays over 10**6 samples (116 dB) and
+    # many lengths of the detector's power table (2**14 samples); reference: the hold written
+    # out with the power of d taken directly (_peak_hold)
+    x = np.zeros(40 * FS)
+    x[100:200] = 10.0
+    tws = TimeWeightingSet(FS, ("I",), initial_mean_square=0.0)
+    ref = _lfilter_reference(x, FS, "I", 0.0)
+    starts = np.arange(0, 2**17, 2**15)
+    for lo in range(0, x.size, 2**17):
+        block = x[lo : lo + 2**17]
+        seg = starts[starts < block.size]
+        _, maxima, _ = tws.extremes(block, seg)
+        np.testing.assert_allclose(maxima["I"], np.maximum.reduceat(ref[lo : lo + 2**17], seg),
+                                   rtol=2e-14, atol=0)
+    assert tws.mean_square["I"] == pytest.approx(ref[-1], rel=2e-14)
+
+
+def test_set_extremes_in_digital_silence(extremes_path: str) -> None:
+    # states are flushed below 1e-200: the outputs decay to exact zeros without subnormals
+    tws = TimeWeightingSet(FS, ("F", "I"), maxima_only=("I",))
+    tws.extremes(_heavy_tailed_squares(2, FS), [0])
+    tiny = np.finfo(np.float64).tiny
+    for _ in range(120):
+        full, maxima, minima = tws.extremes(np.zeros(1 << 16), [0, 1000])
+        assert np.all((full["F"] == 0.0) | (full["F"] >= tiny))
+    assert np.all(full["F"] == 0.0) and tws.mean_square["F"] == 0.0
+    assert minima["F"][-1] == 0.0
+    assert tws.mean_square["I"] > 0.0  # the 1.5 s hold: 120 blocks are 164 s, 47 decades
+
+
+def test_set_extremes_bad_blocks_raise_and_advance_nothing(extremes_path: str) -> None:
+    tws = TimeWeightingSet(FS, initial_mean_square=0.25)
+    with pytest.raises(SettingsError, match="1-D"):
+        tws.extremes(np.ones((2, 300)), [0])
+    with pytest.raises(SettingsError, match=">= 0"):
+        tws.extremes(np.r_[np.ones(300), -1.0], [0, 100])
+    with pytest.raises(SettingsError, match=">= 0"):
+        tws.extremes(np.r_[np.ones(300), np.nan], [0])
+    for starts in ([1, 5], [0, 5, 5], [0, 300], []):
+        with pytest.raises(SettingsError, match="segment starts"):
+            tws.extremes(np.ones(300), starts)
+    assert tws.mean_square == {"F": 0.25, "S": 0.25, "I": 0.25}
