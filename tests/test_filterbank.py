@@ -18,6 +18,7 @@ import pytest
 from scipy import optimize, signal
 
 import bandmeter.filterbank as fb
+from bandmeter import compiled
 from bandmeter.bands import G, band_set
 from bandmeter.errors import SettingsError
 from bandmeter.filterbank import FractionalOctaveBank
@@ -590,7 +591,14 @@ def test_block_path_streaming_random_splits(monkeypatch, b):
                 assert np.max(np.abs(g - r)) <= 1e-12 * scale, (name, threshold, i)
 
 
-def test_block_path_is_taken_for_long_blocks_and_matches_sosfilt(monkeypatch):
+@pytest.fixture
+def numpy_path():
+    """The NumPy paths (block kernel and sosfilt): the compiled kernels off for the test."""
+    with compiled.numpy_only():
+        yield
+
+
+def test_block_path_is_taken_for_long_blocks_and_matches_sosfilt(monkeypatch, numpy_path):
     fs = 48000.0
     bank = FractionalOctaveBank(fs, 3)
     x = np.random.default_rng(14).standard_normal(int(1.5 * fs))
@@ -608,7 +616,7 @@ def test_block_path_is_taken_for_long_blocks_and_matches_sosfilt(monkeypatch):
         assert np.max(np.abs(a - c)) <= 1e-12 * np.sqrt(np.mean(c**2)), bank.bands[i].label
 
 
-def test_band_failing_the_probe_stays_on_sosfilt(monkeypatch):
+def test_band_failing_the_probe_stays_on_sosfilt(monkeypatch, numpy_path):
     monkeypatch.setattr(fb, "_BLOCK_TOL", -1.0)  # no band can pass
     bank = FractionalOctaveBank(8000.0, 3, fmin_hz=500.0)
     x = np.random.default_rng(15).standard_normal(8000)
@@ -623,7 +631,7 @@ def test_band_failing_the_probe_stays_on_sosfilt(monkeypatch):
         assert np.max(np.abs(y - ref)) < 1e-12 * np.max(np.abs(ref))
 
 
-def test_block_path_flushes_tiny_states_after_silence():
+def test_block_path_flushes_tiny_states_after_silence(numpy_path):
     # the block path leaves states below 1e-200 at zero as sosfilt's path does
     bank = FractionalOctaveBank(48000.0, 1)
     bank.process(np.random.default_rng(16).standard_normal(48000))
