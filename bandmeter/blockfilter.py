@@ -86,11 +86,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from types import ModuleType
 
 import numpy as np
 from scipy import signal
 from scipy.linalg import blas
 
+from bandmeter.compiled import kernels
 from bandmeter.errors import SettingsError
 from bandmeter.numerics import flush_tiny
 
@@ -686,8 +688,12 @@ class MultiSosFilter:
         The sections of each cascade (copies, not padded).
     block_path : list of bool or None
         Per cascade: True when the block kernel passed its first-use probe and filters
-        every block, False when ``scipy.signal.sosfilt`` does; None before the first
-        sample.
+        every block, False when ``scipy.signal.sosfilt`` or the compiled kernel does; None
+        before the first sample.
+    compiled_path : bool or None
+        True when the compiled kernel (``sos_bands``, :mod:`bandmeter.compiled`) filters
+        every cascade, in sosfilt's arithmetic (the same bits); chosen on the first sample
+        where the extension is built, and kept; None before the first sample.
 
     Notes
     -----
@@ -717,17 +723,32 @@ class MultiSosFilter:
             raise SettingsError("at least one cascade of sections is needed, got none")
         self.soss = [_check_sos(sos) for sos in soss]
         self.block_path: list[bool] | None = None
+        self.compiled_path: bool | None = None
+        self._compiled: ModuleType | None = None
         self._kernel: _BlockKernel | None = None
         self._members: list[int] = []  # cascades on the kernel, in kernel order
+        sections = max(sos.shape[0] for sos in self.soss)
+        self._padded = np.stack([_pad_sections(sos, sections) for sos in self.soss])
         self.reset()
 
     def reset(self) -> None:
         """Return every filter to rest (zero state)."""
         n = 2 * max(sos.shape[0] for sos in self.soss)
         self._state = np.zeros((len(self._members), n))  # block kernel, its realisation
-        self._zi = [np.zeros((sos.shape[0], 2)) for sos in self.soss]  # sosfilt
+        # sosfilt's layout, every cascade padded to the longest (the compiled kernel's);
+        # self._zi[j] is the view of cascade j's own sections
+        self._zi_padded = np.zeros((len(self.soss), n // 2, 2))
+        self._zi = [self._zi_padded[j, : sos.shape[0]] for j, sos in enumerate(self.soss)]
 
     def _choose_path(self) -> None:
+        compiled = kernels()
+        if compiled is not None and np.all(self._padded[:, :, 3] == 1.0):
+            # every cascade in sosfilt's arithmetic (its bits), side by side in vector lanes
+            # (bandmeter/_kernels.c); kept for the life of the filter, whose state it holds
+            self._compiled, self.compiled_path = compiled, True
+            self.block_path = [False] * len(self.soss)
+            return
+        self.compiled_path = False
         sections = max(sos.shape[0] for sos in self.soss)
         padded = [_pad_sections(sos, sections) for sos in self.soss]
         kernel = _BlockKernel(padded, realise=_cascade_state_space)
@@ -759,6 +780,11 @@ class MultiSosFilter:
             return [np.zeros(0) for _ in self.soss]
         if self.block_path is None:
             self._choose_path()
+        if self._compiled is not None:
+            out = np.empty((len(self.soss), n))
+            self._compiled.sos_bands(np.ascontiguousarray(x, dtype=np.float64), self._padded,
+                                     self._zi_padded, self._padded.shape[1], out, n)
+            return list(out)  # states below 1e-200 flushed by the kernel
         outs: list[np.ndarray] = [np.empty(0)] * len(self.soss)
         if self._kernel is not None:
             out = np.empty((len(self._members), self._kernel.padded_length(n)))
@@ -769,7 +795,7 @@ class MultiSosFilter:
         for j, ok in enumerate(self.block_path):
             if not ok:
                 outs[j], zi = signal.sosfilt(self.soss[j], x, zi=self._zi[j])
-                self._zi[j] = flush_tiny(zi)
+                self._zi[j][...] = flush_tiny(zi)
         return outs
 
 

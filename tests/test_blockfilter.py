@@ -14,11 +14,20 @@ import pytest
 from scipy import signal
 
 from bandmeter import blockfilter as bf
+from bandmeter import compiled
 from bandmeter.blockfilter import MultiSosFilter, SosFilter
 from bandmeter.errors import SettingsError
 from bandmeter.weighting import WeightingFilter, design_sos
 
 RATES = [8000, 44100, 48000, 96000, 192000]
+
+
+@pytest.fixture(autouse=True)
+def _numpy_paths():
+    """This module tests the NumPy block kernel: the compiled kernels are off here (their
+    own tests, tests/test_compiled.py, check them against sosfilt)."""
+    with compiled.numpy_only():
+        yield
 
 
 def _signals(n: int, fs: float) -> dict[str, np.ndarray]:
