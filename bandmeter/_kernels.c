@@ -827,7 +827,17 @@ done:
     return PyLong_FromLong(lanes);
 }
 
+static PyObject *lane_width(PyObject *self, PyObject *args)
+{
+    (void)self;
+    (void)args;
+    return PyLong_FromLong(sos_lanes());
+}
+
 static PyMethodDef kernel_methods[] = {
+    {"lane_width", lane_width, METH_NOARGS,
+     "lane_width() -> int\n\nBands per vector register of sos_bands on this processor: "
+     "4 (AVX2), 2 (SSE2) or 1."},
     {"tile_maxima", tile_maxima, METH_VARARGS,
      "tile_maxima(x, start, n_tiles, tiles_abs, tiles_d2, near) -> bool\n\n"
      "Tile maxima of |x| and |D2| of the true-peak meter; False on a non-finite sample."},

@@ -27,9 +27,14 @@ def now_iso() -> str:
 
 
 def tool_stamp() -> dict[str, str]:
-    """Name and version of the tool and of the Python that ran it."""
+    """Name and version of the tool, of the Python that ran it, and which paths computed
+    the results (:func:`bandmeter.compiled.describe`: the compiled kernels or the NumPy
+    paths, which agree to 1e-9 dB)."""
+    from .compiled import describe
+
     return {
         "tool": "bandmeter",
         "tool_version": __version__,
         "python": platform.python_version(),
+        "kernels": describe(),
     }

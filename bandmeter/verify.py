@@ -50,6 +50,7 @@ import soundfile as sf
 
 from .audio import BIT_DEPTH, RecordingInfo
 from .bands import Band, G
+from .compiled import describe
 from .engine import (
     AnalysisSettings,
     LevelEngine,
@@ -290,6 +291,9 @@ class VerificationReport:
         Run time, s.
     notes : list of str
         What the sample rate leaves out or changes (tests not run are not counted).
+    kernels : str
+        Which paths computed the results (:func:`bandmeter.compiled.describe`), the same
+        that analyse recordings in this installation.
     """
 
     rate_hz: float
@@ -300,6 +304,7 @@ class VerificationReport:
     tests: list[TestResult] = field(default_factory=list)
     elapsed_s: float = 0.0
     notes: list[str] = field(default_factory=list)
+    kernels: str = field(default_factory=describe)
 
     @property
     def passed(self) -> bool:
@@ -329,7 +334,7 @@ class VerificationReport:
 
     def to_dict(self) -> dict[str, Any]:
         """``{"rate_hz", "class", "bands", "quick", "groups", "software_only_note",
-        "coverage_notes", "tests", "passed", "elapsed_s"}``."""
+        "coverage_notes", "kernels", "tests", "passed", "elapsed_s"}``."""
         return {
             "rate_hz": self.rate_hz,
             "class": self.instrument_class,
@@ -338,6 +343,7 @@ class VerificationReport:
             "groups": list(self.groups),
             "software_only_note": SOFTWARE_ONLY_NOTE,
             "coverage_notes": list(self.notes),
+            "kernels": self.kernels,
             "tests": [t.to_dict() for t in self.tests],
             "passed": self.passed,
             "elapsed_s": self.elapsed_s,

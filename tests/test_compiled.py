@@ -11,7 +11,8 @@ once more against a plain per-tile ``max`` over ``np.abs`` and a written-out sec
 difference (numpy itself).
 
 Where the extension is not built these tests skip, unless ``BANDMETER_REQUIRE_KERNELS=1``
-(set by CI, which builds it), where its absence is a failure.
+(set by CI, which builds it), where its absence is a failure; they skip too in a run with
+the kernels switched off (``BANDMETER_NUMPY_ONLY=1``), which tests the NumPy paths alone.
 """
 
 from __future__ import annotations
@@ -35,22 +36,54 @@ from bandmeter.weighting import MultiWeightingFilter, design_sos
 
 FS = 48000
 
-if os.environ.get("BANDMETER_REQUIRE_KERNELS") == "1":
-    _skip = pytest.mark.skipif(False, reason="")
-else:
-    _skip = pytest.mark.skipif(not compiled.available(), reason="compiled kernels not built")
-pytestmark = _skip
+if os.environ.get("BANDMETER_NUMPY_ONLY") == "1":
+    pytestmark = pytest.mark.skip(reason="compiled kernels switched off (BANDMETER_NUMPY_ONLY)")
+elif os.environ.get("BANDMETER_REQUIRE_KERNELS") != "1":
+    pytestmark = pytest.mark.skipif(not compiled.available(),
+                                    reason="compiled kernels not built")
 
 
-def test_extension_is_built() -> None:
+def test_extension_is_built_and_passes_its_self_check() -> None:
     assert compiled.available(), "bandmeter._kernels is not built (no C compiler at install?)"
-    assert compiled.kernels() is not None or os.environ.get("BANDMETER_NUMPY_ONLY") == "1"
+    assert compiled.self_check(compiled._extension) == []
+    assert compiled.kernels() is not None
 
 
-def test_numpy_only_switch() -> None:
+def test_a_kernel_failing_its_self_check_is_not_used(monkeypatch: pytest.MonkeyPatch) -> None:
+    # a module whose histogram counting is off by one: the check names it, kernels() warns
+    # once and the NumPy paths run
+    real = compiled._extension
+
+    class Broken:
+        tile_maxima = staticmethod(real.tile_maxima)
+        time_weighting = staticmethod(real.time_weighting)
+        sos_bands = staticmethod(real.sos_bands)
+
+        @staticmethod
+        def count_levels(levels, low, res, nbins, counts):
+            span = real.count_levels(levels, low, res, nbins, counts)
+            counts[1] += 1
+            return span
+
+    assert compiled.self_check(Broken) == ["count_levels"]
+    monkeypatch.setattr(compiled, "_extension", Broken)
+    monkeypatch.setattr(compiled, "_self_check_passed", None)
+    with pytest.warns(RuntimeWarning, match="count_levels.*NumPy paths run"):
+        assert compiled.kernels() is None
+    assert compiled.kernels() is None  # decided once
+
+
+def test_numpy_only_switch_and_provenance() -> None:
+    from bandmeter.provenance import tool_stamp
+
+    assert compiled.describe().startswith("compiled kernels (")
+    assert tool_stamp()["kernels"] == compiled.describe()
     with compiled.numpy_only():
         assert compiled.kernels() is None
+        assert compiled.describe() == "NumPy paths (compiled kernels switched off)"
+        assert tool_stamp()["kernels"] == compiled.describe()
     assert compiled.kernels() is not None
+    assert compiled.kernels().lane_width() in (1, 2, 4)
 
 
 # -- tile maxima of the true-peak meter ---------------------------------------------------

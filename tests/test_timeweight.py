@@ -671,6 +671,8 @@ def extremes_path(request: pytest.FixtureRequest):
         with compiled.numpy_only():
             yield request.param
         return
+    if os.environ.get("BANDMETER_NUMPY_ONLY") == "1":
+        pytest.skip("compiled kernels switched off (BANDMETER_NUMPY_ONLY)")
     if not compiled.available() and os.environ.get("BANDMETER_REQUIRE_KERNELS") != "1":
         pytest.skip("compiled kernels not built")
     assert compiled.kernels() is not None

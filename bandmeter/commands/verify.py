@@ -111,6 +111,7 @@ def render_report(report: VerificationReport) -> str:
         "  Signals are generated in the digital domain (float64, or quantised to a sample",
         "  format where stated; levels in dB re full scale) and analysed by the same reader,",
         "  level engine and filter bank that analyse recordings.",
+        f"  processing: {report.kernels}, as for recordings in this installation",
         "  margin: distance to the nearer limit (positive = inside); limits marked 'from",
         "  memory' are recalled values, not yet checked against the standards",
     ]
