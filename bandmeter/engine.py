@@ -568,7 +568,9 @@ class LevelEngine:
         (about 2000 of the 46000 bins) instead of the whole histogram. When every level of
         the block lies inside the bins, the floor is taken after subtracting the block's
         lowest bin number ``m`` (exact: ``pos - m`` has no rounding error for
-        ``m <= pos <= 2 m``), so the counts start at bin ``m``.
+        ``m <= pos <= 2 m``), so the counts start at bin ``m``. With the compiled kernels
+        the counting after ``10 lg f`` is one loop (``count_levels``) by the arithmetic of
+        :meth:`LevelHistogram.add_levels`: the same counts.
         """
         proto = self._hist_proto
         compiled = kernels()

@@ -126,6 +126,12 @@ pairs over contiguous slices, then strided pairwise maxima) and 0.4 ns the copy 
 blocks into the meter's buffer; the rest is the tile tests, the candidates and their
 evaluation. The per-sample passes run in chunks of 2**16 samples through work arrays of
 2.4 MB, reused; the buffer holds up to a frame and a block of samples.
+
+With the compiled kernels (:mod:`bandmeter.compiled`) the tile pass (``|x|``, ``|D2|``, their
+tile maxima and the tile test's maxima with the neighbouring samples) is one SSE2 loop with
+the same operations, 0.7 ns per sample against 3.2 ns for the NumPy passes (131072-sample
+arrays, one run), the same values to the last bit; on the 10-minute benchmark recording the
+meter's share of the analysis fell from 0.37 to 0.23 s (both signals).
 """
 
 from __future__ import annotations

@@ -63,6 +63,15 @@ exactly (module notes of :class:`PeakDetector`).
 with the same arithmetic as the single objects (the same bits): it checks the input once,
 and forms a maxima-only weighting's per-sample values (the I averager's) in a reused work
 array that is never returned.
+
+With the compiled kernels (:mod:`bandmeter.compiled`), :meth:`TimeWeightingSet.extremes`
+(the engine's call) runs F, S and I as the recursion itself, the very bits of lfilter, in
+one pass that also holds the I detector (as its last value from the averager and its age,
+``p d**m`` from the detector's power table, re-based once per table length) and takes every
+segment's maxima and minima: about 3 ns per sample for all three weightings and their
+extremes, against about 6 ns for the NumPy path's averaging and hold alone, before its
+reductions (0.09 s against 0.17 s on the 10-minute benchmark recording). The two paths
+agree to 1e-13 relative.
 """
 
 from __future__ import annotations

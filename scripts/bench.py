@@ -18,7 +18,11 @@ bandmeter
     The full standard analysis, ``analyse_file`` with the default settings and 1 s intervals:
     LAeq, LCeq, LZeq, LAE, F/S/I maxima and minima, true (inter-sample) C and Z peaks, seven
     percentile levels LAFN (per interval and overall), overload counts, the SHA-256 of the
-    file, and one-third-octave bands 20 Hz - 20 kHz (Leq per band and interval).
+    file, and one-third-octave bands 20 Hz - 20 kHz (Leq per band and interval), with the
+    compiled kernels where they are built (the report names the paths that ran).
+bandmeter-numpy
+    The same analysis on the NumPy paths alone (``BANDMETER_NUMPY_ONLY=1``), as an
+    installation without a C compiler runs it; reported as its time over the first's.
 scipy
     A plain-scipy script for the same analysis, what a careful user would write: bandmeter's
     own A and C sections (``design_sos``) through ``scipy.signal.sosfilt`` with ``zi`` per
@@ -59,7 +63,9 @@ import numpy as np
 FS = 48000
 #: Single-threaded BLAS and OpenMP in the child processes: one core.
 ONE_CORE = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
-KINDS = ("decode", "bandmeter", "scipy", "scipy-reduced")
+KINDS = ("decode", "bandmeter", "bandmeter-numpy", "scipy", "scipy-reduced")
+#: Extra environment of a kind's child process: bandmeter on its NumPy paths alone.
+KIND_ENV = {"bandmeter-numpy": {"BANDMETER_NUMPY_ONLY": "1"}}
 #: Issue targets: real-time factor, time relative to decode-only, speed-up over plain scipy,
 #: growth of peak memory from 10 to 60 min.
 TARGET_REALTIME = 100.0
@@ -153,8 +159,8 @@ def run_plain_reduced(path: str) -> None:
     reduced(path, bands=True)
 
 
-RUNNERS = {"decode": run_decode, "bandmeter": run_bandmeter, "scipy": run_plain_scipy,
-           "scipy-reduced": run_plain_reduced}
+RUNNERS = {"decode": run_decode, "bandmeter": run_bandmeter, "bandmeter-numpy": run_bandmeter,
+           "scipy": run_plain_scipy, "scipy-reduced": run_plain_reduced}
 
 
 def child(kind: str, path: str) -> None:
@@ -179,11 +185,14 @@ def child(kind: str, path: str) -> None:
     run(path)
     seconds, cpu = time.perf_counter() - t0, time.process_time() - c0
     rss_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-    print(json.dumps({"seconds": seconds, "cpu_seconds": cpu, "rss_mb": rss_mb}))
+    from bandmeter.compiled import describe
+
+    print(json.dumps({"seconds": seconds, "cpu_seconds": cpu, "rss_mb": rss_mb,
+                      "kernels": describe()}))
 
 
 def measure(kind: str, path: str) -> dict[str, float]:
-    env = {**os.environ, **ONE_CORE}
+    env = {**os.environ, **ONE_CORE, **KIND_ENV.get(kind, {})}
     cmd = [sys.executable, os.path.abspath(__file__), "--child", kind, path]
     out = subprocess.run(cmd, check=True, capture_output=True, text=True, env=env).stdout
     return json.loads(out.strip().splitlines()[-1])
@@ -206,13 +215,17 @@ def report(minutes: float, rounds: list[dict[str, dict[str, float]]]) -> dict:
         bm = res["bandmeter"]["seconds"]
         print(f"         bandmeter / decode-only time {bm / res['decode']['seconds']:.1f}; "
               f"plain scipy / bandmeter {res['scipy']['seconds'] / bm:.2f}; "
-              f"reduced plain scipy / bandmeter {res['scipy-reduced']['seconds'] / bm:.2f}")
+              f"reduced plain scipy / bandmeter {res['scipy-reduced']['seconds'] / bm:.2f}; "
+              f"NumPy paths / compiled {res['bandmeter-numpy']['seconds'] / bm:.2f}")
     best = {kind: min((res[kind] for res in rounds), key=lambda r: r["seconds"])
             for kind in rounds[0]}
     bm = best["bandmeter"]["seconds"]
     print(f"  best   bandmeter / decode-only time {bm / best['decode']['seconds']:.1f}; "
           f"plain scipy / bandmeter {best['scipy']['seconds'] / bm:.2f}; "
-          f"reduced plain scipy / bandmeter {best['scipy-reduced']['seconds'] / bm:.2f}")
+          f"reduced plain scipy / bandmeter {best['scipy-reduced']['seconds'] / bm:.2f}; "
+          f"NumPy paths / compiled {best['bandmeter-numpy']['seconds'] / bm:.2f}")
+    for kind in ("bandmeter", "bandmeter-numpy"):
+        print(f"  {kind}: {rounds[0][kind].get('kernels', '?')}")
     return {
         "minutes": minutes,
         "rounds": rounds,
@@ -221,6 +234,8 @@ def report(minutes: float, rounds: list[dict[str, dict[str, float]]]) -> dict:
         "decode_ratio": bm / best["decode"]["seconds"],
         "scipy_speedup": best["scipy"]["seconds"] / bm,
         "reduced_speedup": best["scipy-reduced"]["seconds"] / bm,
+        "numpy_paths_ratio": best["bandmeter-numpy"]["seconds"] / bm,
+        "kernels": {k: rounds[0][k].get("kernels") for k in ("bandmeter", "bandmeter-numpy")},
         "rss_mb": {k: max(res[k]["rss_mb"] for res in rounds) for k in best},
         "spread": {
             "realtime": [audio_s / res["bandmeter"]["seconds"] for res in rounds],
