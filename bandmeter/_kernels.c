@@ -6,8 +6,9 @@
  * bit; time_weighting runs the exponential averagers as the recursion itself (the bits of
  * scipy.signal.lfilter), which the NumPy path's block formulation matches to 1e-13
  * relative; sos_bands runs band filters in scipy.signal.sosfilt's arithmetic (its bits),
- * which the NumPy path's block kernel matches to 4.5e-14 of a band's RMS. The package uses the NumPy paths when this module is not built, and the tests
- * compare the two. Arrays are passed through the buffer protocol (C-contiguous float64); the Python
+ * which the NumPy path's block kernel matches to 4.5e-14 of a band's RMS. The package uses
+ * the NumPy paths when this module is not built, and the tests compare the two. Arrays are
+ * passed through the buffer protocol (C-contiguous float64, int64 where stated); the Python
  * caller checks shapes and dtypes, this file checks every index against the buffer sizes.
  *
  * Built with -ffp-contract=off: no fused multiply-adds, so that every operation rounds as
@@ -568,6 +569,34 @@ static void sos_bands_scalar(const double *x, Py_ssize_t n, const double *sos, d
     }
 }
 
+/* Section s of each of `width` bands, as lanes: lane[b] = b0 b1 b2 a1 a2 z0 z1 (idle lanes
+ * stay 0: they filter nothing and are never stored). */
+static void gather_lanes(const double *sos, const double *zi, Py_ssize_t n_sections,
+                         Py_ssize_t s, int width, double lane[][7])
+{
+    for (int b = 0; b < width; b++) {
+        const double *row = sos + 6 * (b * n_sections + s);
+        const double *st = zi + 2 * (b * n_sections + s);
+        lane[b][0] = row[0];
+        lane[b][1] = row[1];
+        lane[b][2] = row[2];
+        lane[b][3] = row[4];
+        lane[b][4] = row[5];
+        lane[b][5] = st[0];
+        lane[b][6] = st[1];
+    }
+}
+
+/* The states of section s back from their lanes (z0 in lo, z1 in hi). */
+static void scatter_states(double *zi, Py_ssize_t n_sections, Py_ssize_t s, int width,
+                           const double *lo, const double *hi)
+{
+    for (int b = 0; b < width; b++) {
+        zi[2 * (b * n_sections + s)] = lo[b];
+        zi[2 * (b * n_sections + s) + 1] = hi[b];
+    }
+}
+
 #if defined(__SSE2__)
 /* Two bands in the lanes of SSE2 registers (the second lane idle when width is 1). */
 static void sos_bands_sse2(const double *x, Py_ssize_t n, const double *sos, double *zi,
@@ -577,17 +606,7 @@ static void sos_bands_sse2(const double *x, Py_ssize_t n, const double *sos, dou
     const __m128d sign = _mm_set1_pd(-0.0), floor = _mm_set1_pd(STATE_FLOOR_C);
     for (Py_ssize_t s = 0; s < n_sections; s++) {
         double lane[2][7] = {{0}};
-        for (int b = 0; b < width; b++) {
-            const double *row = sos + 6 * (b * n_sections + s);
-            const double *st = zi + 2 * (b * n_sections + s);
-            lane[b][0] = row[0];
-            lane[b][1] = row[1];
-            lane[b][2] = row[2];
-            lane[b][3] = row[4];
-            lane[b][4] = row[5];
-            lane[b][5] = st[0];
-            lane[b][6] = st[1];
-        }
+        gather_lanes(sos, zi, n_sections, s, width, lane);
         for (int k = 0; k < 5; k++)
             c[s][k] = _mm_set_pd(lane[1][k], lane[0][k]);
         z[s][0] = _mm_set_pd(lane[1][5], lane[0][5]);
@@ -617,10 +636,7 @@ static void sos_bands_sse2(const double *x, Py_ssize_t n, const double *sos, dou
         double lo[2], hi[2];
         _mm_storeu_pd(lo, z[s][0]);
         _mm_storeu_pd(hi, z[s][1]);
-        for (int b = 0; b < width; b++) {
-            zi[2 * (b * n_sections + s)] = lo[b];
-            zi[2 * (b * n_sections + s) + 1] = hi[b];
-        }
+        scatter_states(zi, n_sections, s, width, lo, hi);
     }
 }
 #endif
@@ -636,17 +652,7 @@ static void sos_bands_avx2(const double *x, Py_ssize_t n, const double *sos, dou
     const __m256d sign = _mm256_set1_pd(-0.0), floor = _mm256_set1_pd(STATE_FLOOR_C);
     for (Py_ssize_t s = 0; s < n_sections; s++) {
         double lane[4][7] = {{0}};
-        for (int b = 0; b < width; b++) {
-            const double *row = sos + 6 * (b * n_sections + s);
-            const double *st = zi + 2 * (b * n_sections + s);
-            lane[b][0] = row[0];
-            lane[b][1] = row[1];
-            lane[b][2] = row[2];
-            lane[b][3] = row[4];
-            lane[b][4] = row[5];
-            lane[b][5] = st[0];
-            lane[b][6] = st[1];
-        }
+        gather_lanes(sos, zi, n_sections, s, width, lane);
         for (int k = 0; k < 5; k++)
             c[s][k] = _mm256_set_pd(lane[3][k], lane[2][k], lane[1][k], lane[0][k]);
         z[s][0] = _mm256_set_pd(lane[3][5], lane[2][5], lane[1][5], lane[0][5]);
@@ -702,10 +708,7 @@ static void sos_bands_avx2(const double *x, Py_ssize_t n, const double *sos, dou
         double lo[4], hi[4];
         _mm256_storeu_pd(lo, z[s][0]);
         _mm256_storeu_pd(hi, z[s][1]);
-        for (int b = 0; b < width; b++) {
-            zi[2 * (b * n_sections + s)] = lo[b];
-            zi[2 * (b * n_sections + s) + 1] = hi[b];
-        }
+        scatter_states(zi, n_sections, s, width, lo, hi);
     }
 }
 

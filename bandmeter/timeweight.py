@@ -737,8 +737,8 @@ class TimeWeightingSet:
         operations and order of :func:`scipy.signal.lfilter` (so its very bits), all of them
         and the I detector's hold ``max(y[n], d held[n-1])`` in one pass, with the segments'
         extremes taken on the way; the block formulation of the NumPy path agrees with it to
-        1e-13 relative (module notes). A maxima-only weighting's segment maxima are the same
-        to the last bit either way (``max(max y, d held)``, :meth:`PeakDetector.segment_maxima`).
+        1e-13 relative (module notes). The hold's segment maxima follow the same rule either
+        way, ``max(max y, d held)`` (:meth:`PeakDetector.segment_maxima`).
 
         Parameters
         ----------
