@@ -166,6 +166,7 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Sequence
+from types import ModuleType
 
 import numpy as np
 from scipy import integrate, optimize, signal
@@ -960,12 +961,15 @@ class FractionalOctaveBank:
             self._stage_zi.append(self._zi[first : first + len(members)])
             for j, i in enumerate(members):
                 self._filters[i].zi = self._stage_zi[-1][j : j + 1]
-        # each stage's sections in one array, for the compiled kernel
+        # each stage's sections in one array, for the compiled kernel (which takes a0 = 1,
+        # as the designs have it)
         self._stage_sos = [
             np.ascontiguousarray(np.stack([self._filters[i].sos for i in members]))
             if members else np.zeros((0, ORDER, 6))
             for members in self._by_stage
         ]
+        self._sections_normalised = all(bool(np.all(s[:, :, 3] == 1.0))
+                                        for s in self._stage_sos)
         self._plans: list[_StagePlan | None] = [None] * n_stages
         self._scratch: dict[str, np.ndarray] = {}  # work arrays of the block path
         # held stages: the pending input of each stage (index 0 unused)
@@ -1027,7 +1031,7 @@ class FractionalOctaveBank:
                 v = pending[0] if len(pending) == 1 else np.concatenate(pending)
                 self._pending[k] = []
             inputs.append(v)
-        compiled = kernels()
+        compiled = kernels() if self._sections_normalised else None
         plans = [
             self._stage_plan(k) if v.size >= _BLOCK_MIN_SAMPLES and compiled is None else None
             for k, v in enumerate(inputs)
@@ -1039,7 +1043,7 @@ class FractionalOctaveBank:
         out: list[np.ndarray] = [buffer[:0]] * len(self.bands)
         offset = 0
         for k, v in enumerate(inputs):
-            offset = self._filter_stage(k, v, plans[k], buffer, offset, out)
+            offset = self._filter_stage(k, v, plans[k], buffer, offset, out, compiled)
         if size:
             flush_tiny(self._zi)  # no subnormal state after digital silence (slow arithmetic)
         return out
@@ -1067,12 +1071,16 @@ class FractionalOctaveBank:
         buffer: np.ndarray,
         offset: int,
         out: list[np.ndarray],
+        compiled: ModuleType | None = None,
     ) -> int:
-        """Filter stage ``k``'s input ``v`` into ``buffer[offset:]``; return the new offset."""
+        """Filter stage ``k``'s input ``v`` into ``buffer[offset:]``; return the new offset.
+
+        With ``compiled`` (the kernels module) every band of the stage runs on its stage
+        kernel, else on ``plan``'s block kernels and sosfilt.
+        """
         members = self._by_stage[k]
         n = v.size
         zi = self._stage_zi[k]
-        compiled = kernels()
         if compiled is not None and members and n:
             # all bands of the stage side by side in vector lanes, sosfilt's arithmetic
             # (bandmeter/_kernels.c): the same bits as the sosfilt path
