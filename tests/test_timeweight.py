@@ -794,3 +794,58 @@ def test_set_extremes_bad_blocks_raise_and_advance_nothing(extremes_path: str) -
         with pytest.raises(SettingsError, match="segment starts"):
             tws.extremes(np.ones(300), starts)
     assert tws.mean_square == {"F": 0.25, "S": 0.25, "I": 0.25}
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    cuts=st.lists(st.integers(1, 3 * 16384 + 499), max_size=8, unique=True),
+    numpy_paths=st.booleans(),
+)
+def test_set_extremes_do_not_depend_on_the_block_split(
+    seed: int, cuts: list[int], numpy_paths: bool
+) -> None:
+    # the same signal in one block and cut anywhere, segments at the same absolute samples:
+    # the same per-sample F and S (the compiled recursion: the same bits; the NumPy block
+    # formulation regroups by block, 1e-13) and the same segment extremes
+    import contextlib
+
+    from bandmeter import compiled
+
+    x = _with_silence(_heavy_tailed_squares(seed % 997, 3 * 16384 + 500), seed)
+    bounds = [0, 7000, 20000, 33333, x.size]  # segment starts (absolute), and the end
+    context = compiled.numpy_only() if numpy_paths else contextlib.nullcontext()
+    with context:
+        def run(edges: list[int]) -> tuple[dict, dict, dict]:
+            tws = TimeWeightingSet(FS, initial_mean_square=0.1)
+            full = {"F": [], "S": []}
+            top: dict[str, list] = {"F": [], "S": [], "I": []}
+            low: dict[str, list] = {"F": [], "S": []}
+            for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+                inner = [b - lo for b in bounds if lo < b < hi]
+                got = tws.extremes(x[lo:hi], [0, *inner])
+                for name in full:
+                    full[name].append(got.full[name])
+                    low[name].append(got.minima[name])
+                for name in top:
+                    top[name].append(got.maxima[name])
+            # a segment cut by a block edge is reported in pieces: combine them
+            return ({k: np.concatenate(v) for k, v in full.items()},
+                    {k: np.concatenate(v) for k, v in top.items()},
+                    {k: np.concatenate(v) for k, v in low.items()})
+
+        whole = run([0, x.size])  # one block, its segments inside it
+        parts = run(sorted({0, x.size, *cuts}))  # blocks cut anywhere, segments inside
+    piece_starts = sorted({0, *cuts, *bounds[1:-1]})
+    owner = np.searchsorted(bounds, piece_starts, side="right") - 1
+    rtol = 1e-13 if numpy_paths else 0.0
+    for name in ("F", "S"):
+        np.testing.assert_allclose(parts[0][name], whole[0][name], rtol=rtol, atol=0)
+    for name in ("F", "S", "I"):
+        pieces = parts[1][name]
+        combined = [pieces[owner == k].max() for k in range(len(bounds) - 1)]
+        np.testing.assert_allclose(combined, whole[1][name], rtol=max(rtol, 1e-14), atol=0)
+    for name in ("F", "S"):
+        pieces = parts[2][name]
+        combined = [pieces[owner == k].min() for k in range(len(bounds) - 1)]
+        np.testing.assert_allclose(combined, whole[2][name], rtol=rtol, atol=0)
