@@ -1,7 +1,8 @@
 """Build of the optional compiled kernels (``bandmeter._kernels``); everything else is in
 pyproject.toml. Where no C compiler is available the build of the extension is skipped
 (``optional=True``) and bandmeter runs its NumPy paths, which give the same results (to the
-last bit, or within 1e-9 dB where they regroup the arithmetic; see ``bandmeter/compiled.py``).
+last bit, or within 1e-9 dB where they regroup the arithmetic, bands within 1e-12 of the
+total band energy; see ``bandmeter/compiled.py``).
 
 The kernels must round every operation as written: no fused multiply-adds and no fast-math
 reassociation, whatever the compiler.

@@ -1,15 +1,16 @@
 """Access to the optional compiled kernels (``bandmeter/_kernels.c``).
 
-The extension is built by ``pip install`` where a C compiler is available. It holds four
+The extension is built by ``pip install`` where a C compiler is available. It holds the
 inner loops of the analysis:
 
 - the true-peak meter's tile maxima of ``|x|`` and ``|D2|`` (:mod:`bandmeter.peak`) and
 - the level histogram's counting (the engine's LAFN), each with the NumPy path's
   floating-point operations in the same order, so the results are the same to the last bit;
-- the filter bank's band filters, all bands of a stage side by side in vector lanes, in the
-  arithmetic of ``scipy.signal.sosfilt`` (its very bits), where the NumPy path's block
-  kernel agrees with sosfilt to 4.5e-14 of a band's RMS (:mod:`bandmeter.filterbank`); and
-
+- the filter bank's band filters, all bands of a stage side by side in vector lanes, and
+  the A and C weightings the same way (:class:`bandmeter.blockfilter.MultiSosFilter`), in
+  the arithmetic of ``scipy.signal.sosfilt`` (its very bits), where the NumPy paths' block
+  kernels agree with sosfilt to 4.5e-14 of a band's RMS (:mod:`bandmeter.filterbank`) and
+  1e-11 of the A or C output (their first-use probe); and
 - the F, S and I time weightings with their extremes per interval
   (:meth:`bandmeter.timeweight.TimeWeightingSet.extremes`), run as the recursion
   ``y[n] = (1 - a) x[n] + a y[n-1]`` itself (the very bits of ``scipy.signal.lfilter``),

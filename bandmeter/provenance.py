@@ -29,7 +29,7 @@ def now_iso() -> str:
 def tool_stamp() -> dict[str, str]:
     """Name and version of the tool, of the Python that ran it, and which paths computed
     the results (:func:`bandmeter.compiled.describe`: the compiled kernels or the NumPy
-    paths, which agree to 1e-9 dB)."""
+    paths, which agree to 1e-9 dB; see :mod:`bandmeter.compiled`)."""
     from .compiled import describe
 
     return {
