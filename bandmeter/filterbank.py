@@ -125,6 +125,11 @@ Speed
         131072-sample block at 48 kHz take 0.7 of that time (interleaved runs, caches
         evicted between blocks).
 
+    With the compiled stage kernel, ``scripts/bench_filterbank.py`` (below) gave 1014 x real
+    time at 48 kHz against 650 x for the NumPy paths, 380 x for sosfilt alone and 94.5 x for
+    the plain full-rate order-4 bank (10.7 times), in one run; the figures that follow are
+    of the NumPy paths.
+
     Measured with ``scripts/bench_filterbank.py`` (one core, 60 s of noise in 1 s blocks,
     one-third octaves, band mean squares accumulated) on the development machine, a shared
     2-core virtual machine whose figures vary by some +-20 % between runs (the script

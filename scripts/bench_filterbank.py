@@ -4,10 +4,12 @@ Both banks filter the same synthetic white-noise signal in blocks and accumulate
 square of every band. The plain bank is what a user would write: one full-rate Butterworth
 band-pass per band (same order and edges as the multirate bank's filters, also an order-3
 variant) run with ``scipy.signal.sosfilt`` and carried ``zi``. The multirate bank is timed
-twice: as shipped (block state-space kernel for long stage blocks) and with the block path
-switched off (every band through scipy's sosfilt kernel, the bank's previous path).
-The A and C frequency weightings of the same signal are timed too, on one block kernel
-(``MultiWeightingFilter``, as the level engine can use them) against two ``WeightingFilter``.
+three times: as shipped (the compiled stage kernel where it is built, ``bandmeter.compiled``),
+on its NumPy paths (block state-space kernel for long stage blocks) and with the block path
+switched off too (every band through scipy's sosfilt kernel, the bank's first path).
+The A and C frequency weightings of the same signal are timed too, together
+(``MultiWeightingFilter``, as the level engine uses them: compiled, or on one NumPy block
+kernel) against two ``WeightingFilter`` on the NumPy paths.
 Single-threaded BLAS is forced so the figures are for one core. The repeats of all variants
 are interleaved and the fastest run of each counts, so that the ratios printed compare runs
 made under the same machine load.
@@ -33,6 +35,7 @@ import numpy as np  # noqa: E402
 from scipy import signal  # noqa: E402
 
 import bandmeter.filterbank as fb  # noqa: E402
+from bandmeter import compiled  # noqa: E402
 from bandmeter.bands import G  # noqa: E402
 from bandmeter.filterbank import ORDER, FractionalOctaveBank, effective_bandwidth_beta  # noqa: E402
 from bandmeter.weighting import MultiWeightingFilter, WeightingFilter  # noqa: E402
@@ -75,20 +78,32 @@ def run_bank(x: np.ndarray, block: int, bank: FractionalOctaveBank) -> tuple[flo
     return time.process_time() - t0, acc / cnt
 
 
+def run_bank_numpy(
+    x: np.ndarray, block: int, bank: FractionalOctaveBank
+) -> tuple[float, np.ndarray]:
+    """:func:`run_bank` on the NumPy paths (the compiled kernels switched off)."""
+    with compiled.numpy_only():
+        return run_bank(x, block, bank)
+
+
 def run_bank_sosfilt_only(
     x: np.ndarray, block: int, bank: FractionalOctaveBank
 ) -> tuple[float, np.ndarray]:
-    """:func:`run_bank` with the block path switched off (all bands on scipy's sosfilt)."""
+    """:func:`run_bank_numpy` with the block path switched off (all bands on sosfilt)."""
     saved = fb._BLOCK_MIN_SAMPLES
     fb._BLOCK_MIN_SAMPLES = 1 << 62
     try:
-        return run_bank(x, block, bank)
+        return run_bank_numpy(x, block, bank)
     finally:
         fb._BLOCK_MIN_SAMPLES = saved
 
 
-def run_weightings(x: np.ndarray, block: int, fs: float, together: bool) -> float:
-    """CPU time of A and C weighting ``x`` in blocks: one kernel, or a filter each."""
+def run_weightings(x: np.ndarray, block: int, fs: float, together: bool,
+                   numpy_only: bool) -> float:
+    """CPU time of A and C weighting ``x`` in blocks: together, or a filter each."""
+    if numpy_only:
+        with compiled.numpy_only():
+            return run_weightings(x, block, fs, together, numpy_only=False)
     if together:
         pair = MultiWeightingFilter(("A", "C"), fs)
         pair.process(x[:1])  # the first-use probe is not timed
@@ -128,25 +143,29 @@ def main() -> None:
     }
     runs: dict[str, Callable[[], tuple[float, np.ndarray]]] = {
         "multirate bank": lambda: run_bank(x, block, bank),
+        "  NumPy paths": lambda: run_bank_numpy(x, block, bank),
         "  sosfilt only": lambda: run_bank_sosfilt_only(x, block, bank),
     }
     for name, soss in plains.items():
         runs[name] = lambda soss=soss: run_plain(x, block, soss)
     best = dict.fromkeys(runs, np.inf)
     means: dict[str, np.ndarray] = {}
-    weigh = {"A+C on one kernel": True, "A, C one each": False}
+    weigh = {"A+C together": (True, False), "A+C on one NumPy kernel": (True, True),
+             "A, C one each (NumPy)": (False, True)}
     best_w = dict.fromkeys(weigh, np.inf)
     for _ in range(args.repeat):  # interleaved: every variant sees the same machine load
         for name, run in runs.items():
             elapsed, means[name] = run()
             best[name] = min(best[name], elapsed)
         if 8000 <= fs <= 192000:
-            for name, together in weigh.items():
-                best_w[name] = min(best_w[name], run_weightings(x, block, fs, together))
+            for name, (together, numpy_only) in weigh.items():
+                best_w[name] = min(best_w[name],
+                                   run_weightings(x, block, fs, together, numpy_only))
     print(
         f"fs = {fs:g} Hz, 1/{args.b} octave, {len(bank.bands)} bands "
         f"({bank.bands[0].label}..{bank.bands[-1].label} Hz), {args.seconds:g} s of noise, "
-        f"blocks of {args.block_s:g} s, bank built in {build:.2f} s"
+        f"blocks of {args.block_s:g} s, bank built in {build:.2f} s; as shipped: "
+        f"{compiled.describe()}"
     )
     t_bank = best["multirate bank"]
     for name, elapsed in best.items():
@@ -154,12 +173,15 @@ def main() -> None:
         if name != "multirate bank":
             line += f"; multirate is {elapsed / t_bank:.2f} x faster"
         print(line)
-    dev = np.max(np.abs(means["multirate bank"] / means["  sosfilt only"] - 1.0))
-    print(f"band mean squares, block path vs sosfilt only: max relative difference {dev:.1e}")
+    for name in ("multirate bank", "  NumPy paths"):
+        dev = np.max(np.abs(means[name] / means["  sosfilt only"] - 1.0))
+        print(f"band mean squares, {name.strip()} vs sosfilt only: max relative difference "
+              f"{dev:.1e}")
     if 8000 <= fs <= 192000:
-        t_pair, t_two = best_w["A+C on one kernel"], best_w["A, C one each"]
-        print(f"A and C weightings: one kernel {t_pair:.3f} s, a filter each {t_two:.3f} s "
-              f"(ratio {t_pair / t_two:.2f})")
+        t_two = best_w["A, C one each (NumPy)"]
+        for name in ("A+C together", "A+C on one NumPy kernel"):
+            print(f"A and C weightings, {name}: {best_w[name]:.3f} s against a NumPy filter "
+                  f"each {t_two:.3f} s (ratio {best_w[name] / t_two:.2f})")
 
 
 if __name__ == "__main__":
