@@ -16,7 +16,9 @@
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
+#include <float.h>
 #include <math.h>
+#include <string.h>
 
 #if defined(__SSE2__)
 #include <emmintrin.h>
@@ -134,7 +136,8 @@ static PyObject *tile_maxima(PyObject *self, PyObject *args)
     }
     Py_ssize_t n_x = x.len / 8;
     int result = -1;
-    if (n_tiles < 2 || start < 1 || start + TILE * n_tiles + 1 > n_x
+    /* x[start - 1 .. start + 16 n_tiles] is read; written without overflow */
+    if (n_tiles < 2 || start < 1 || start > n_x - 1 || n_tiles > (n_x - 1 - start) / TILE
         || t_abs.len / 8 < n_tiles || t_d2.len / 8 < n_tiles || near.len / 8 < n_tiles - 2) {
         PyErr_SetString(PyExc_ValueError, "tile_maxima: arrays too short for the tiles");
     } else {
@@ -225,8 +228,11 @@ static PyObject *count_levels(PyObject *self, PyObject *args)
              && sizeof(long long) == 8;
     if (!ok) {
         PyErr_SetString(PyExc_TypeError, "counts must hold int64 values");
-    } else if (nbins < 1 || counts.len / 8 < nbins + 2 || !(resolution_db > 0.0)) {
+    } else if (nbins < 1 || nbins > counts.len / 8 - 2 || !(resolution_db > 0.0)) {
         PyErr_SetString(PyExc_ValueError, "count_levels: counts shorter than nbins + 2");
+        ok = 0;
+    } else if (levels.len == 0) {
+        PyErr_SetString(PyExc_ValueError, "count_levels: no levels");
         ok = 0;
     } else {
         Py_BEGIN_ALLOW_THREADS
@@ -261,7 +267,8 @@ static PyObject *count_levels(PyObject *self, PyObject *args)
  * as the NumPy detector does (no slow subnormal state); the averagers' states are the
  * caller's (it flushes them between blocks).
  *
- * Returns 0, or -1 (nothing stored in states and held) on a negative or NaN sample.
+ * Returns 0, or -1 (nothing stored in states and held) on a negative, infinite or NaN
+ * sample.
  */
 #define MAX_CHAINS 3
 #define HOLD_FLOOR 1e-200
@@ -309,7 +316,7 @@ static int time_weighting_loop(const double *x, const long long *edges, Py_ssize
         int bad = 0;
         for (long long i = edges[s]; i < edges[s + 1]; i++) {
             double v = x[i];
-            bad |= !(v >= 0.0);
+            bad |= !(v >= 0.0 && v <= DBL_MAX);
             for (int j = 0; j < k; j++) {
                 double w = b[j] * v + a[j] * y[j];
                 y[j] = w;
@@ -357,7 +364,7 @@ static int time_weighting_fsi(const double *x, const long long *edges, Py_ssize_
         int bad = 0;
         for (long long i = edges[s]; i < edges[s + 1]; i++) {
             double v = x[i];
-            bad |= !(v >= 0.0);
+            bad |= !(v >= 0.0 && v <= DBL_MAX);
             yf = bf * v + af * yf;
             ys = bs * v + as * ys;
             yi = bi * v + ai * yi;
@@ -480,6 +487,15 @@ static PyObject *time_weighting(PyObject *self, PyObject *args)
         hold[j] = c[3 * j + 2] != 0.0;
     }
     const HoldTable decay = {(const double *)table.buf, table.len / 8};
+    /* the loops read the edges as they go: a private copy, so that outputs sharing memory
+     * with them cannot move a bound after it was checked */
+    long long *e_copy = PyMem_Malloc(sizeof(long long) * (size_t)(n_segments + 1));
+    if (e_copy == NULL) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    memcpy(e_copy, e, sizeof(long long) * (size_t)(n_segments + 1));
+    e = e_copy;
     int status;
     Py_BEGIN_ALLOW_THREADS
     if (k == 3 && out[0] && out[1] && !out[2] && !hold[0] && !hold[1] && hold[2])
@@ -491,6 +507,7 @@ static PyObject *time_weighting(PyObject *self, PyObject *args)
                                      &decay, (double *)state.buf, (double *)held.buf, out,
                                      (double *)maxima.buf, (double *)minima.buf);
     Py_END_ALLOW_THREADS
+    PyMem_Free(e_copy);
     result = PyBool_FromLong(status == 0);
 done:
     for (int j = 0; j < n_outs; j++)
@@ -603,7 +620,7 @@ static void sos_bands_sse2(const double *x, Py_ssize_t n, const double *sos, dou
                            Py_ssize_t n_sections, int width, double *out, Py_ssize_t stride)
 {
     __m128d c[MAX_SECTIONS][5], z[MAX_SECTIONS][2];
-    const __m128d sign = _mm_set1_pd(-0.0), floor = _mm_set1_pd(STATE_FLOOR_C);
+    const __m128d sign = _mm_set1_pd(-0.0), tiny = _mm_set1_pd(STATE_FLOOR_C);
     for (Py_ssize_t s = 0; s < n_sections; s++) {
         double lane[2][7] = {{0}};
         gather_lanes(sos, zi, n_sections, s, width, lane);
@@ -629,8 +646,8 @@ static void sos_bands_sse2(const double *x, Py_ssize_t n, const double *sos, dou
         }
         for (Py_ssize_t s = 0; s < n_sections; s++)
             for (int k = 0; k < 2; k++)
-                z[s][k] = _mm_and_pd(z[s][k],
-                                     _mm_cmpge_pd(_mm_andnot_pd(sign, z[s][k]), floor));
+                z[s][k] = _mm_andnot_pd(_mm_cmplt_pd(_mm_andnot_pd(sign, z[s][k]), tiny),
+                                        z[s][k]); /* only |z| < 1e-200 to 0: NaN stays */
     }
     for (Py_ssize_t s = 0; s < n_sections; s++) {
         double lo[2], hi[2];
@@ -649,7 +666,7 @@ static void sos_bands_avx2(const double *x, Py_ssize_t n, const double *sos, dou
                            Py_ssize_t n_sections, int width, double *out, Py_ssize_t stride)
 {
     __m256d c[MAX_SECTIONS][5], z[MAX_SECTIONS][2];
-    const __m256d sign = _mm256_set1_pd(-0.0), floor = _mm256_set1_pd(STATE_FLOOR_C);
+    const __m256d sign = _mm256_set1_pd(-0.0), tiny = _mm256_set1_pd(STATE_FLOOR_C);
     for (Py_ssize_t s = 0; s < n_sections; s++) {
         double lane[4][7] = {{0}};
         gather_lanes(sos, zi, n_sections, s, width, lane);
@@ -701,8 +718,8 @@ static void sos_bands_avx2(const double *x, Py_ssize_t n, const double *sos, dou
         }
         for (Py_ssize_t s = 0; s < n_sections; s++)
             for (int k = 0; k < 2; k++)
-                z[s][k] = _mm256_and_pd(
-                    z[s][k], _mm256_cmp_pd(_mm256_andnot_pd(sign, z[s][k]), floor, _CMP_GE_OQ));
+                z[s][k] = _mm256_andnot_pd( /* only |z| < 1e-200 to 0: NaN stays */
+                    _mm256_cmp_pd(_mm256_andnot_pd(sign, z[s][k]), tiny, _CMP_LT_OQ), z[s][k]);
     }
     for (Py_ssize_t s = 0; s < n_sections; s++) {
         double lo[4], hi[4];
@@ -799,10 +816,18 @@ static PyObject *sos_bands(PyObject *self, PyObject *args)
         goto done;
     }
     Py_ssize_t n_bands = sos.len / 8 / (6 * n_sections);
+    /* rows b * stride + [0, n) of out are written, b < n_bands; checked without overflow */
+    Py_ssize_t n_out = out.len / 8;
     if (zi.len / 8 != 2 * n_sections * n_bands || stride < n
-        || (n_bands && out.len / 8 < stride * (n_bands - 1) + n)) {
+        || (n_bands && (n_out < n || (n_bands > 1 && stride > (n_out - n) / (n_bands - 1))))) {
         PyErr_SetString(PyExc_ValueError, "sos_bands: inconsistent array sizes");
         goto done;
+    }
+    for (Py_ssize_t r = 0; r < n_bands * n_sections; r++) {
+        if (((const double *)sos.buf)[6 * r + 3] != 1.0) {
+            PyErr_SetString(PyExc_ValueError, "sos_bands: every section needs a0 = 1");
+            goto done;
+        }
     }
     if (lanes == 0)
         lanes = sos_lanes();

@@ -152,6 +152,8 @@ def _squared_block(squared_block: np.ndarray) -> np.ndarray:
         raise SettingsError(
             f"squared samples must be >= 0 and not NaN, got minimum {float(x.min())!r}"
         )
+    if x.size and x.max() == np.inf:
+        raise SettingsError("squared samples must be >= 0 and finite, got infinity")
     return x
 
 
@@ -785,7 +787,8 @@ class TimeWeightingSet:
         if not compiled.time_weighting(x, edges, coefficients, states, held, decay, outputs,
                                        top, bottom):
             _squared_block(x)  # raises the NumPy path's error
-            raise SettingsError("squared samples must be >= 0 and not NaN")  # pragma: no cover
+            raise SettingsError(  # pragma: no cover - _squared_block refuses the same
+                "squared samples must be >= 0 and finite")
         for j, (_, member) in enumerate(members):
             member._averager._keep(float(states[j]))
             if member._detector is not None:

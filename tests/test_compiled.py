@@ -18,6 +18,7 @@ the kernels switched off (``BANDMETER_NUMPY_ONLY=1``), which tests the NumPy pat
 from __future__ import annotations
 
 import os
+import sys
 
 import numpy as np
 import pytest
@@ -151,6 +152,8 @@ def test_tile_maxima_refuses_bad_arguments() -> None:
         k.tile_maxima(x.astype(np.float32), 1, 4, t[0], t[1], np.empty(2))
     with pytest.raises(ValueError, match="contiguous"):
         k.tile_maxima(np.zeros(200)[::2], 1, 4, t[0], t[1], np.empty(2))  # not contiguous
+    with pytest.raises(ValueError):  # a start whose tile end overflows the index type
+        k.tile_maxima(x, sys.maxsize - 20, 2, t[0], t[1], np.empty(0))
 
 
 def _meter_peaks(x: np.ndarray, interval_s: float | None) -> dict[int, float]:
@@ -225,6 +228,10 @@ def test_count_levels_reports_nan_and_refuses_bad_arguments() -> None:
         k.count_levels(np.zeros(3), 0.0, 1.0, 11, counts)  # counts too short
     with pytest.raises(ValueError):
         k.count_levels(np.zeros(3), 0.0, 0.0, 10, counts)  # no bin width
+    with pytest.raises(ValueError):  # nbins + 2 overflows the index type
+        k.count_levels(np.array([1e6]), 0.0, 1.0, sys.maxsize, np.zeros(3, dtype=np.int64))
+    with pytest.raises(ValueError, match="no levels"):
+        k.count_levels(np.zeros(0), 0.0, 1.0, 10, counts)
     with pytest.raises(TypeError):
         k.count_levels(np.zeros(3), 0.0, 1.0, 10, counts.astype(np.int32))
     with pytest.raises(TypeError):
@@ -300,6 +307,46 @@ def test_sos_bands_refuses_bad_arguments() -> None:
         k.sos_bands(np.zeros(100), sos, zi, 4, out, 100, 3)  # no such lane width
     with pytest.raises(TypeError):
         k.sos_bands(np.zeros(100, dtype=np.float32), sos, zi, 4, out, 100)
+    with pytest.raises(ValueError):  # a stride whose last row overflows the index type
+        k.sos_bands(np.zeros(8), sos, zi, 4, np.empty(8), sys.maxsize)
+    scaled = sos.copy()
+    scaled[1, 2, :] *= 2.0  # a0 = 2: sosfilt's arithmetic assumes a0 = 1
+    with pytest.raises(ValueError, match="a0 = 1"):
+        k.sos_bands(np.zeros(100), scaled, zi, 4, out, 100)
+
+
+@pytest.mark.parametrize("lanes", [1, 2, 4])
+@pytest.mark.parametrize("bad", [np.nan, np.inf])
+def test_sos_bands_carry_non_finite_samples_as_sosfilt_does(lanes: int, bad: float) -> None:
+    # reference: scipy.signal.sosfilt; a NaN or infinite sample makes the states NaN for
+    # good, in every lane width (the flush of tiny states leaves NaN alone)
+    sos = _random_band_passes(np.random.default_rng(6), 3, 2)
+    x = np.ones(600)
+    x[10] = bad
+    zi = np.zeros((3, 2, 2))
+    out = np.empty((3, 600))
+    compiled.kernels().sos_bands(x, sos, zi, 2, out, 600, lanes)
+    for b in range(3):
+        ref, z_ref = signal.sosfilt(sos[b], x, zi=np.zeros((2, 2)))
+        assert np.array_equal(out[b], ref, equal_nan=True)
+        assert np.array_equal(zi[b], z_ref, equal_nan=True)
+
+
+def test_time_weighting_kernel_refuses_infinity_and_survives_shared_memory() -> None:
+    k = compiled.kernels()
+    coef = np.array([[0.5, 0.5, 0.0]])
+    state = np.array([0.25])
+    args = (np.array([0, 4], dtype=np.int64), coef, state, np.zeros(1), np.ones(4), (None,),
+            np.empty(1), np.empty(1))
+    assert not k.time_weighting(np.array([1.0, np.inf, 1.0, 1.0]), *args)
+    assert state[0] == 0.25  # nothing advanced
+    # outputs sharing memory with the segment edges: the kernel reads its own copy of them
+    # (the values written are meaningless here; what matters is no access out of bounds)
+    shared = np.zeros(8)
+    edges = shared[0:3].view(np.int64)
+    edges[:] = [0, 4, 8]
+    assert k.time_weighting(np.ones(8), edges, coef, np.zeros(1), np.zeros(1), np.ones(4),
+                            (None,), shared[2:4], np.empty(2))
 
 
 @pytest.mark.parametrize("fs,b", [(48000.0, 3), (44100.0, 1), (96000.0, 6)])

@@ -790,6 +790,8 @@ def test_set_extremes_bad_blocks_raise_and_advance_nothing(extremes_path: str) -
         tws.extremes(np.r_[np.ones(300), -1.0], [0, 100])
     with pytest.raises(SettingsError, match=">= 0"):
         tws.extremes(np.r_[np.ones(300), np.nan], [0])
+    with pytest.raises(SettingsError, match="finite"):
+        tws.extremes(np.r_[np.ones(300), np.inf], [0, 7])
     for starts in ([1, 5], [0, 5, 5], [0, 300], []):
         with pytest.raises(SettingsError, match="segment starts"):
             tws.extremes(np.ones(300), starts)
