@@ -95,61 +95,99 @@ static int tile_maxima_loop(const double *x, Py_ssize_t start, Py_ssize_t n_tile
     return 1;
 }
 
-static int float64_buffer(PyObject *obj, Py_buffer *view, int writable, const char *name)
+/* One array argument: the object, what it must hold ('d' float64, 'q' int64), whether it is
+ * written, its name for errors, and its buffer once acquired (obj None: an absent optional
+ * argument, view.buf NULL). */
+typedef struct {
+    PyObject *obj;
+    char kind;
+    int writable;
+    const char *name;
+    Py_buffer view;
+} ArrayArg;
+
+#define ARRAY_ARG(k, w, n) {.obj = NULL, .kind = (k), .writable = (w), .name = (n)}
+
+static int acquire_one(ArrayArg *arg)
 {
-    int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
-    if (PyObject_GetBuffer(obj, view, flags) < 0)
+    int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (arg->writable ? PyBUF_WRITABLE : 0);
+    arg->view.buf = NULL;
+    arg->view.len = 0;
+    if (arg->obj == Py_None)
+        return 0;
+    if (PyObject_GetBuffer(arg->obj, &arg->view, flags) < 0)
         return -1;
-    if (view->itemsize != 8 || view->format == NULL || strcmp(view->format, "d") != 0) {
-        PyErr_Format(PyExc_TypeError, "%s must hold float64 values", name);
-        PyBuffer_Release(view);
+    const char *f = arg->view.format;
+    int ok = arg->view.itemsize == 8 && f != NULL
+             && (arg->kind == 'd' ? strcmp(f, "d") == 0
+                                  : (strcmp(f, "l") == 0 || strcmp(f, "q") == 0));
+    if (!ok) {
+        PyErr_Format(PyExc_TypeError, "%s must hold %s values", arg->name,
+                     arg->kind == 'd' ? "float64" : "int64");
+        PyBuffer_Release(&arg->view);
+        arg->view.buf = NULL;
         return -1;
     }
     return 0;
 }
 
+static void release_arrays(ArrayArg *args, int count)
+{
+    for (int i = 0; i < count; i++) {
+        if (args[i].view.buf != NULL || args[i].view.obj != NULL)
+            PyBuffer_Release(&args[i].view);
+        args[i].view.buf = NULL;
+        args[i].view.obj = NULL;
+    }
+}
+
+/* Acquire every array of args (0), or none (-1, with the error set). */
+static int acquire_arrays(ArrayArg *args, int count)
+{
+    for (int i = 0; i < count; i++) {
+        args[i].view.obj = NULL;
+        args[i].view.buf = NULL;
+    }
+    for (int i = 0; i < count; i++) {
+        if (acquire_one(&args[i]) < 0) {
+            release_arrays(args, i);
+            return -1;
+        }
+    }
+    return 0;
+}
+
+/* Number of 8-byte values in an acquired array (0 when absent). */
+static Py_ssize_t values(const ArrayArg *arg)
+{
+    return arg->view.len / 8;
+}
+
 static PyObject *tile_maxima(PyObject *self, PyObject *args)
 {
-    PyObject *x_obj, *abs_obj, *d2_obj, *near_obj;
+    ArrayArg a[4] = {ARRAY_ARG('d', 0, "x"), ARRAY_ARG('d', 1, "tiles_abs"),
+                     ARRAY_ARG('d', 1, "tiles_d2"), ARRAY_ARG('d', 1, "near")};
     Py_ssize_t start, n_tiles;
-    Py_buffer x, t_abs, t_d2, near;
     (void)self;
-    if (!PyArg_ParseTuple(args, "OnnOOO", &x_obj, &start, &n_tiles, &abs_obj, &d2_obj,
-                          &near_obj))
+    if (!PyArg_ParseTuple(args, "OnnOOO", &a[0].obj, &start, &n_tiles, &a[1].obj, &a[2].obj,
+                          &a[3].obj))
         return NULL;
-    if (float64_buffer(x_obj, &x, 0, "x") < 0)
+    if (acquire_arrays(a, 4) < 0)
         return NULL;
-    if (float64_buffer(abs_obj, &t_abs, 1, "tiles_abs") < 0) {
-        PyBuffer_Release(&x);
-        return NULL;
-    }
-    if (float64_buffer(d2_obj, &t_d2, 1, "tiles_d2") < 0) {
-        PyBuffer_Release(&x);
-        PyBuffer_Release(&t_abs);
-        return NULL;
-    }
-    if (float64_buffer(near_obj, &near, 1, "near") < 0) {
-        PyBuffer_Release(&x);
-        PyBuffer_Release(&t_abs);
-        PyBuffer_Release(&t_d2);
-        return NULL;
-    }
-    Py_ssize_t n_x = x.len / 8;
+    Py_ssize_t n_x = values(&a[0]);
     int result = -1;
     /* x[start - 1 .. start + 16 n_tiles] is read; written without overflow */
     if (n_tiles < 2 || start < 1 || start > n_x - 1 || n_tiles > (n_x - 1 - start) / TILE
-        || t_abs.len / 8 < n_tiles || t_d2.len / 8 < n_tiles || near.len / 8 < n_tiles - 2) {
+        || values(&a[1]) < n_tiles || values(&a[2]) < n_tiles || values(&a[3]) < n_tiles - 2) {
         PyErr_SetString(PyExc_ValueError, "tile_maxima: arrays too short for the tiles");
     } else {
         Py_BEGIN_ALLOW_THREADS
-        result = tile_maxima_loop((const double *)x.buf, start, n_tiles, (double *)t_abs.buf,
-                                  (double *)t_d2.buf, (double *)near.buf);
+        result = tile_maxima_loop((const double *)a[0].view.buf, start, n_tiles,
+                                  (double *)a[1].view.buf, (double *)a[2].view.buf,
+                                  (double *)a[3].view.buf);
         Py_END_ALLOW_THREADS
     }
-    PyBuffer_Release(&x);
-    PyBuffer_Release(&t_abs);
-    PyBuffer_Release(&t_d2);
-    PyBuffer_Release(&near);
+    release_arrays(a, 4);
     if (result < 0)
         return NULL;
     return PyBool_FromLong(result);
@@ -207,41 +245,30 @@ static void count_levels_loop(const double *levels, Py_ssize_t n, double low_db,
 
 static PyObject *count_levels(PyObject *self, PyObject *args)
 {
-    PyObject *levels_obj, *counts_obj;
+    ArrayArg a[2] = {ARRAY_ARG('d', 0, "levels"), ARRAY_ARG('q', 1, "counts")};
     double low_db, resolution_db;
     Py_ssize_t nbins;
-    Py_buffer levels, counts;
     (void)self;
-    if (!PyArg_ParseTuple(args, "OddnO", &levels_obj, &low_db, &resolution_db, &nbins,
-                          &counts_obj))
+    if (!PyArg_ParseTuple(args, "OddnO", &a[0].obj, &low_db, &resolution_db, &nbins,
+                          &a[1].obj))
         return NULL;
-    if (float64_buffer(levels_obj, &levels, 0, "levels") < 0)
+    if (acquire_arrays(a, 2) < 0)
         return NULL;
-    if (PyObject_GetBuffer(counts_obj, &counts,
-                           PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | PyBUF_WRITABLE) < 0) {
-        PyBuffer_Release(&levels);
-        return NULL;
-    }
     Py_ssize_t lowest = 0, highest = 0;
-    int ok = counts.itemsize == 8 && counts.format != NULL
-             && (strcmp(counts.format, "l") == 0 || strcmp(counts.format, "q") == 0)
-             && sizeof(long long) == 8;
-    if (!ok) {
-        PyErr_SetString(PyExc_TypeError, "counts must hold int64 values");
-    } else if (nbins < 1 || nbins > counts.len / 8 - 2 || !(resolution_db > 0.0)) {
+    int ok = 0;
+    if (nbins < 1 || nbins > values(&a[1]) - 2 || !(resolution_db > 0.0)) {
         PyErr_SetString(PyExc_ValueError, "count_levels: counts shorter than nbins + 2");
-        ok = 0;
-    } else if (levels.len == 0) {
+    } else if (values(&a[0]) == 0) {
         PyErr_SetString(PyExc_ValueError, "count_levels: no levels");
-        ok = 0;
     } else {
         Py_BEGIN_ALLOW_THREADS
-        count_levels_loop((const double *)levels.buf, levels.len / 8, low_db, resolution_db,
-                          nbins, (long long *)counts.buf, &lowest, &highest);
+        count_levels_loop((const double *)a[0].view.buf, values(&a[0]), low_db,
+                          resolution_db, nbins, (long long *)a[1].view.buf, &lowest,
+                          &highest);
         Py_END_ALLOW_THREADS
+        ok = 1;
     }
-    PyBuffer_Release(&levels);
-    PyBuffer_Release(&counts);
+    release_arrays(a, 2);
     if (!ok)
         return NULL;
     if (lowest < 0)
@@ -400,133 +427,92 @@ static int time_weighting_fsi(const double *x, const long long *edges, Py_ssize_
 
 static PyObject *time_weighting(PyObject *self, PyObject *args)
 {
-    PyObject *x_obj, *edges_obj, *coef_obj, *state_obj, *held_obj, *table_obj, *outs_obj,
-        *max_obj, *min_obj;
+    enum { X, EDGES, COEF, STATE, HELD, TABLE, MAXIMA, MINIMA, OUT0 };
+    ArrayArg a[OUT0 + MAX_CHAINS] = {
+        ARRAY_ARG('d', 0, "x"),      ARRAY_ARG('q', 0, "edges"),
+        ARRAY_ARG('d', 0, "coefficients"), ARRAY_ARG('d', 1, "states"),
+        ARRAY_ARG('d', 1, "held"),   ARRAY_ARG('d', 0, "decay"),
+        ARRAY_ARG('d', 1, "maxima"), ARRAY_ARG('d', 1, "minima"),
+    };
+    PyObject *outs_obj;
     (void)self;
-    if (!PyArg_ParseTuple(args, "OOOOOOOOO", &x_obj, &edges_obj, &coef_obj, &state_obj,
-                          &held_obj, &table_obj, &outs_obj, &max_obj, &min_obj))
+    if (!PyArg_ParseTuple(args, "OOOOOOOOO", &a[X].obj, &a[EDGES].obj, &a[COEF].obj,
+                          &a[STATE].obj, &a[HELD].obj, &a[TABLE].obj, &outs_obj,
+                          &a[MAXIMA].obj, &a[MINIMA].obj))
         return NULL;
-    if (!PyTuple_Check(outs_obj)) {
-        PyErr_SetString(PyExc_TypeError, "outputs must be a tuple of arrays or None");
+    if (!PyTuple_Check(outs_obj) || PyTuple_GET_SIZE(outs_obj) > MAX_CHAINS) {
+        PyErr_SetString(PyExc_TypeError, "outputs must be a tuple of up to 3 arrays or None");
         return NULL;
     }
-    Py_buffer x, edges, coef, state, held, table, maxima, minima;
-    Py_buffer outs[MAX_CHAINS];
-    int n_outs = 0, got = 0;
+    int n_outs = (int)PyTuple_GET_SIZE(outs_obj);
+    for (int j = 0; j < n_outs; j++)
+        a[OUT0 + j] = (ArrayArg){.obj = PyTuple_GET_ITEM(outs_obj, j), .kind = 'd',
+                                 .writable = 1, .name = "output"};
+    int count = OUT0 + n_outs;
+    if (acquire_arrays(a, count) < 0)
+        return NULL;
     PyObject *result = NULL;
-    if (float64_buffer(x_obj, &x, 0, "x") < 0)
-        return NULL;
-    got = 1;
-    if (PyObject_GetBuffer(edges_obj, &edges, PyBUF_C_CONTIGUOUS | PyBUF_FORMAT) < 0)
-        goto done;
-    got = 2;
-    if (float64_buffer(coef_obj, &coef, 0, "coefficients") < 0)
-        goto done;
-    got = 3;
-    if (float64_buffer(state_obj, &state, 1, "states") < 0)
-        goto done;
-    got = 4;
-    if (float64_buffer(held_obj, &held, 1, "held") < 0)
-        goto done;
-    got = 5;
-    if (float64_buffer(max_obj, &maxima, 1, "maxima") < 0)
-        goto done;
-    got = 6;
-    if (float64_buffer(min_obj, &minima, 1, "minima") < 0)
-        goto done;
-    got = 7;
-    if (float64_buffer(table_obj, &table, 0, "decay") < 0)
-        goto done;
-    got = 8;
-    Py_ssize_t n = x.len / 8;
-    int k = (int)(state.len / 8);
-    Py_ssize_t n_edges = edges.len / 8, n_segments = n_edges - 1;
-    if (edges.itemsize != 8 || edges.format == NULL
-        || (strcmp(edges.format, "l") != 0 && strcmp(edges.format, "q") != 0)) {
-        PyErr_SetString(PyExc_TypeError, "edges must hold int64 values");
-        goto done;
-    }
-    if (k < 1 || k > MAX_CHAINS || PyTuple_GET_SIZE(outs_obj) != k || coef.len / 8 != 3 * k
-        || held.len / 8 != k || n_segments < 1 || maxima.len / 8 < k * n_segments
-        || minima.len / 8 < k * n_segments || table.len / 8 < 2) {
+    long long *e_copy = NULL;
+    Py_ssize_t n = values(&a[X]);
+    int k = (int)values(&a[STATE]);
+    Py_ssize_t n_segments = values(&a[EDGES]) - 1;
+    if (k < 1 || k > MAX_CHAINS || n_outs != k || values(&a[COEF]) != 3 * k
+        || values(&a[HELD]) != k || n_segments < 1 || values(&a[MAXIMA]) < k * n_segments
+        || values(&a[MINIMA]) < k * n_segments || values(&a[TABLE]) < 2) {
         PyErr_SetString(PyExc_ValueError, "time_weighting: inconsistent array sizes");
         goto done;
     }
-    const long long *e = (const long long *)edges.buf;
-    if (e[0] != 0 || e[n_segments] != n) {
-        PyErr_SetString(PyExc_ValueError, "time_weighting: edges must run from 0 to len(x)");
-        goto done;
-    }
-    for (Py_ssize_t s = 0; s < n_segments; s++) {
-        if (e[s + 1] <= e[s]) {
-            PyErr_SetString(PyExc_ValueError, "time_weighting: edges must increase");
-            goto done;
-        }
-    }
     double *out[MAX_CHAINS];
     for (int j = 0; j < k; j++) {
-        PyObject *o = PyTuple_GET_ITEM(outs_obj, j);
-        out[j] = NULL;
-        if (o == Py_None)
-            continue;
-        if (float64_buffer(o, &outs[n_outs], 1, "output") < 0)
-            goto done;
-        n_outs++;
-        if (outs[n_outs - 1].len / 8 < n) {
+        out[j] = (double *)a[OUT0 + j].view.buf; /* NULL: maxima only */
+        if (out[j] != NULL && values(&a[OUT0 + j]) < n) {
             PyErr_SetString(PyExc_ValueError, "time_weighting: output shorter than x");
             goto done;
         }
-        out[j] = (double *)outs[n_outs - 1].buf;
     }
-    const double *c = (const double *)coef.buf; /* rows (a, b, hold) */
-    double a[MAX_CHAINS], b[MAX_CHAINS];
-    int hold[MAX_CHAINS];
-    for (int j = 0; j < k; j++) {
-        a[j] = c[3 * j];
-        b[j] = c[3 * j + 1];
-        hold[j] = c[3 * j + 2] != 0.0;
-    }
-    const HoldTable decay = {(const double *)table.buf, table.len / 8};
-    /* the loops read the edges as they go: a private copy, so that outputs sharing memory
-     * with them cannot move a bound after it was checked */
-    long long *e_copy = PyMem_Malloc(sizeof(long long) * (size_t)(n_segments + 1));
+    /* the loops read the edges as they go: a private copy, checked, so that outputs sharing
+     * memory with them cannot move a bound after it was checked */
+    e_copy = PyMem_Malloc(sizeof(long long) * (size_t)(n_segments + 1));
     if (e_copy == NULL) {
         PyErr_NoMemory();
         goto done;
     }
-    memcpy(e_copy, e, sizeof(long long) * (size_t)(n_segments + 1));
-    e = e_copy;
+    memcpy(e_copy, a[EDGES].view.buf, sizeof(long long) * (size_t)(n_segments + 1));
+    if (e_copy[0] != 0 || e_copy[n_segments] != n) {
+        PyErr_SetString(PyExc_ValueError, "time_weighting: edges must run from 0 to len(x)");
+        goto done;
+    }
+    for (Py_ssize_t s = 0; s < n_segments; s++) {
+        if (e_copy[s + 1] <= e_copy[s]) {
+            PyErr_SetString(PyExc_ValueError, "time_weighting: edges must increase");
+            goto done;
+        }
+    }
+    const double *c = (const double *)a[COEF].view.buf; /* rows (a, b, hold) */
+    double ca[MAX_CHAINS], cb[MAX_CHAINS];
+    int hold[MAX_CHAINS];
+    for (int j = 0; j < k; j++) {
+        ca[j] = c[3 * j];
+        cb[j] = c[3 * j + 1];
+        hold[j] = c[3 * j + 2] != 0.0;
+    }
+    const HoldTable decay = {(const double *)a[TABLE].view.buf, values(&a[TABLE])};
+    const double *x = (const double *)a[X].view.buf;
+    double *state = (double *)a[STATE].view.buf, *held = (double *)a[HELD].view.buf;
+    double *top = (double *)a[MAXIMA].view.buf, *bottom = (double *)a[MINIMA].view.buf;
     int status;
     Py_BEGIN_ALLOW_THREADS
     if (k == 3 && out[0] && out[1] && !out[2] && !hold[0] && !hold[1] && hold[2])
-        status = time_weighting_fsi((const double *)x.buf, e, n_segments, a, b, &decay,
-                                    (double *)state.buf, (double *)held.buf, out[0], out[1],
-                                    (double *)maxima.buf, (double *)minima.buf);
+        status = time_weighting_fsi(x, e_copy, n_segments, ca, cb, &decay, state, held,
+                                    out[0], out[1], top, bottom);
     else
-        status = time_weighting_loop((const double *)x.buf, e, n_segments, k, a, b, hold,
-                                     &decay, (double *)state.buf, (double *)held.buf, out,
-                                     (double *)maxima.buf, (double *)minima.buf);
+        status = time_weighting_loop(x, e_copy, n_segments, k, ca, cb, hold, &decay, state,
+                                     held, out, top, bottom);
     Py_END_ALLOW_THREADS
-    PyMem_Free(e_copy);
     result = PyBool_FromLong(status == 0);
 done:
-    for (int j = 0; j < n_outs; j++)
-        PyBuffer_Release(&outs[j]);
-    if (got >= 8)
-        PyBuffer_Release(&table);
-    if (got >= 7)
-        PyBuffer_Release(&minima);
-    if (got >= 6)
-        PyBuffer_Release(&maxima);
-    if (got >= 5)
-        PyBuffer_Release(&held);
-    if (got >= 4)
-        PyBuffer_Release(&state);
-    if (got >= 3)
-        PyBuffer_Release(&coef);
-    if (got >= 2)
-        PyBuffer_Release(&edges);
-    PyBuffer_Release(&x);
+    PyMem_Free(e_copy);
+    release_arrays(a, count);
     return result;
 }
 
@@ -789,67 +775,51 @@ static void sos_bands_loop(const double *x, Py_ssize_t n, const double *sos, dou
 
 static PyObject *sos_bands(PyObject *self, PyObject *args)
 {
-    PyObject *x_obj, *sos_obj, *zi_obj, *out_obj;
+    ArrayArg a[4] = {ARRAY_ARG('d', 0, "x"), ARRAY_ARG('d', 0, "sos"),
+                     ARRAY_ARG('d', 1, "zi"), ARRAY_ARG('d', 1, "out")};
     Py_ssize_t n_sections, stride;
-    int lanes = 0;
+    int lanes = 0, ok = 0;
     (void)self;
-    if (!PyArg_ParseTuple(args, "OOOnOn|i", &x_obj, &sos_obj, &zi_obj, &n_sections, &out_obj,
-                          &stride, &lanes))
+    if (!PyArg_ParseTuple(args, "OOOnOn|i", &a[0].obj, &a[1].obj, &a[2].obj, &n_sections,
+                          &a[3].obj, &stride, &lanes))
         return NULL;
-    Py_buffer x, sos, zi, out;
-    int got = 0, ok = 0;
-    if (float64_buffer(x_obj, &x, 0, "x") < 0)
+    if (acquire_arrays(a, 4) < 0)
         return NULL;
-    got = 1;
-    if (float64_buffer(sos_obj, &sos, 0, "sos") < 0)
-        goto done;
-    got = 2;
-    if (float64_buffer(zi_obj, &zi, 1, "zi") < 0)
-        goto done;
-    got = 3;
-    if (float64_buffer(out_obj, &out, 1, "out") < 0)
-        goto done;
-    got = 4;
-    Py_ssize_t n = x.len / 8;
-    if (n_sections < 1 || n_sections > MAX_SECTIONS || (sos.len / 8) % (6 * n_sections)) {
+    const double *sos = (const double *)a[1].view.buf;
+    Py_ssize_t n = values(&a[0]);
+    if (n_sections < 1 || n_sections > MAX_SECTIONS || values(&a[1]) % (6 * n_sections)) {
         PyErr_SetString(PyExc_ValueError, "sos_bands: sos must be (bands, sections, 6)");
         goto done;
     }
-    Py_ssize_t n_bands = sos.len / 8 / (6 * n_sections);
+    Py_ssize_t n_bands = values(&a[1]) / (6 * n_sections);
     /* rows b * stride + [0, n) of out are written, b < n_bands; checked without overflow */
-    Py_ssize_t n_out = out.len / 8;
-    if (zi.len / 8 != 2 * n_sections * n_bands || stride < n
+    Py_ssize_t n_out = values(&a[3]);
+    if (values(&a[2]) != 2 * n_sections * n_bands || stride < n
         || (n_bands && (n_out < n || (n_bands > 1 && stride > (n_out - n) / (n_bands - 1))))) {
         PyErr_SetString(PyExc_ValueError, "sos_bands: inconsistent array sizes");
         goto done;
     }
     for (Py_ssize_t r = 0; r < n_bands * n_sections; r++) {
-        if (((const double *)sos.buf)[6 * r + 3] != 1.0) {
+        if (sos[6 * r + 3] != 1.0) {
             PyErr_SetString(PyExc_ValueError, "sos_bands: every section needs a0 = 1");
             goto done;
         }
     }
-    if (lanes == 0)
+    if (lanes == 0) {
         lanes = sos_lanes();
-    else if (lanes != 1 && lanes != 2 && lanes != 4) {
+    } else if (lanes != 1 && lanes != 2 && lanes != 4) {
         PyErr_SetString(PyExc_ValueError, "sos_bands: lanes must be 1, 2 or 4");
         goto done;
     } else if (lanes > sos_lanes()) {
         lanes = sos_lanes();
     }
     Py_BEGIN_ALLOW_THREADS
-    sos_bands_loop((const double *)x.buf, n, (const double *)sos.buf, (double *)zi.buf,
-                   n_bands, n_sections, (double *)out.buf, stride, lanes);
+    sos_bands_loop((const double *)a[0].view.buf, n, sos, (double *)a[2].view.buf, n_bands,
+                   n_sections, (double *)a[3].view.buf, stride, lanes);
     Py_END_ALLOW_THREADS
     ok = 1;
 done:
-    if (got >= 4)
-        PyBuffer_Release(&out);
-    if (got >= 3)
-        PyBuffer_Release(&zi);
-    if (got >= 2)
-        PyBuffer_Release(&sos);
-    PyBuffer_Release(&x);
+    release_arrays(a, 4);
     if (!ok)
         return NULL;
     return PyLong_FromLong(lanes);
