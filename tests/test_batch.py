@@ -392,8 +392,10 @@ def test_sigterm_stops_cleanly_with_tables(tmp_path):
     import time
 
     root = tmp_path / "many"
-    for i in range(8):
-        _write(str(root / f"mp6_{i:02d}.wav"), 6.0, -30, 40 + i)
+    # enough audio that the batch is still running when the signal comes, soon after the
+    # first result (with the compiled kernels, 8 files of 6 s could all finish first)
+    for i in range(16):
+        _write(str(root / f"mp6_{i:02d}.wav"), 12.0, -30, 40 + i)
     out = tmp_path / "out"
     cmd = [sys.executable, "-c", "from bandmeter.cli import main; main()", "batch", str(root),
            "--full-scale-level", str(L_FS), "--bands", "third", "--out", str(out),
