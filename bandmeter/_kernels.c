@@ -572,21 +572,24 @@ static void sos_bands_scalar(const double *x, Py_ssize_t n, const double *sos, d
     }
 }
 
-/* Section s of each of `width` bands, as lanes: lane[b] = b0 b1 b2 a1 a2 z0 z1 (idle lanes
- * stay 0: they filter nothing and are never stored). */
+/* Section s of each of `width` bands, one row per quantity and one column per lane:
+ * lane[q][b] for q = b0 b1 b2 a1 a2 z0 z1, ready for an unaligned vector load of each row
+ * (idle lanes are 0: they filter nothing and are never stored). */
+#define LANES_MAX 4
 static void gather_lanes(const double *sos, const double *zi, Py_ssize_t n_sections,
-                         Py_ssize_t s, int width, double lane[][7])
+                         Py_ssize_t s, int width, double lane[7][LANES_MAX])
 {
+    memset(lane, 0, sizeof(double) * 7 * LANES_MAX);
     for (int b = 0; b < width; b++) {
         const double *row = sos + 6 * (b * n_sections + s);
         const double *st = zi + 2 * (b * n_sections + s);
-        lane[b][0] = row[0];
-        lane[b][1] = row[1];
-        lane[b][2] = row[2];
-        lane[b][3] = row[4];
-        lane[b][4] = row[5];
-        lane[b][5] = st[0];
-        lane[b][6] = st[1];
+        lane[0][b] = row[0];
+        lane[1][b] = row[1];
+        lane[2][b] = row[2];
+        lane[3][b] = row[4];
+        lane[4][b] = row[5];
+        lane[5][b] = st[0];
+        lane[6][b] = st[1];
     }
 }
 
@@ -608,12 +611,12 @@ static void sos_bands_sse2(const double *x, Py_ssize_t n, const double *sos, dou
     __m128d c[MAX_SECTIONS][5], z[MAX_SECTIONS][2];
     const __m128d sign = _mm_set1_pd(-0.0), tiny = _mm_set1_pd(STATE_FLOOR_C);
     for (Py_ssize_t s = 0; s < n_sections; s++) {
-        double lane[2][7] = {{0}};
+        double lane[7][LANES_MAX];
         gather_lanes(sos, zi, n_sections, s, width, lane);
         for (int k = 0; k < 5; k++)
-            c[s][k] = _mm_set_pd(lane[1][k], lane[0][k]);
-        z[s][0] = _mm_set_pd(lane[1][5], lane[0][5]);
-        z[s][1] = _mm_set_pd(lane[1][6], lane[0][6]);
+            c[s][k] = _mm_loadu_pd(lane[k]);
+        z[s][0] = _mm_loadu_pd(lane[5]);
+        z[s][1] = _mm_loadu_pd(lane[6]);
     }
     for (Py_ssize_t i0 = 0; i0 < n; i0 += FLUSH_EVERY) {
         Py_ssize_t i1 = i0 + FLUSH_EVERY < n ? i0 + FLUSH_EVERY : n;
@@ -654,12 +657,12 @@ static void sos_bands_avx2(const double *x, Py_ssize_t n, const double *sos, dou
     __m256d c[MAX_SECTIONS][5], z[MAX_SECTIONS][2];
     const __m256d sign = _mm256_set1_pd(-0.0), tiny = _mm256_set1_pd(STATE_FLOOR_C);
     for (Py_ssize_t s = 0; s < n_sections; s++) {
-        double lane[4][7] = {{0}};
+        double lane[7][LANES_MAX];
         gather_lanes(sos, zi, n_sections, s, width, lane);
         for (int k = 0; k < 5; k++)
-            c[s][k] = _mm256_set_pd(lane[3][k], lane[2][k], lane[1][k], lane[0][k]);
-        z[s][0] = _mm256_set_pd(lane[3][5], lane[2][5], lane[1][5], lane[0][5]);
-        z[s][1] = _mm256_set_pd(lane[3][6], lane[2][6], lane[1][6], lane[0][6]);
+            c[s][k] = _mm256_loadu_pd(lane[k]);
+        z[s][0] = _mm256_loadu_pd(lane[5]);
+        z[s][1] = _mm256_loadu_pd(lane[6]);
     }
     double tail[4][4];
     for (Py_ssize_t i0 = 0; i0 < n; i0 += FLUSH_EVERY) {

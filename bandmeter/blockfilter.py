@@ -749,8 +749,8 @@ class MultiSosFilter:
             self.block_path = [False] * len(self.soss)
             return
         self.compiled_path = False
-        sections = max(sos.shape[0] for sos in self.soss)
-        padded = [_pad_sections(sos, sections) for sos in self.soss]
+        sections = self._padded.shape[1]
+        padded = list(self._padded)
         kernel = _BlockKernel(padded, realise=_cascade_state_space)
         dev = probe_once(_probe_cascades, kernel, self.soss)
         self.block_path = [bool(d <= _BLOCK_TOL) for d in dev]

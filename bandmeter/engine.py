@@ -607,9 +607,7 @@ class LevelEngine:
             start = base + offset
             self._hist_counts[start : start + counts.size] += counts
             span = (base + lowest_bin, start + counts.size - 1)
-            old = self._hist_span
-            self._hist_span = span if old is None else (min(old[0], span[0]),
-                                                        max(old[1], span[1]))
+            self._widen_histogram_span(span)
 
     def _count_levels_compiled(
         self, compiled: ModuleType, levels: np.ndarray, seg: np.ndarray, ids: np.ndarray
@@ -627,9 +625,13 @@ class LevelEngine:
                                          proto.nbins, self._hist_counts)
             if span is None:
                 raise SettingsError("NaN level given to the level histogram")
-            old = self._hist_span
-            self._hist_span = span if old is None else (min(old[0], span[0]),
-                                                        max(old[1], span[1]))
+            self._widen_histogram_span(span)
+
+    def _widen_histogram_span(self, span: tuple[int, int]) -> None:
+        """Extend the open interval's occupied counts indices to cover ``span``."""
+        old = self._hist_span
+        self._hist_span = span if old is None else (min(old[0], span[0]),
+                                                    max(old[1], span[1]))
 
     def _close_histogram(self) -> None:
         if self._hist_span is None:

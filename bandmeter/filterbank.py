@@ -966,15 +966,13 @@ class FractionalOctaveBank:
             self._stage_zi.append(self._zi[first : first + len(members)])
             for j, i in enumerate(members):
                 self._filters[i].zi = self._stage_zi[-1][j : j + 1]
-        # each stage's sections in one array, for the compiled kernel (which takes a0 = 1,
-        # as the designs have it)
+        # each stage's sections in one array, for the compiled kernel (which refuses a0 != 1;
+        # every design has a0 = 1)
         self._stage_sos = [
             np.ascontiguousarray(np.stack([self._filters[i].sos for i in members]))
             if members else np.zeros((0, ORDER, 6))
             for members in self._by_stage
         ]
-        self._sections_normalised = all(bool(np.all(s[:, :, 3] == 1.0))
-                                        for s in self._stage_sos)
         self._plans: list[_StagePlan | None] = [None] * n_stages
         self._scratch: dict[str, np.ndarray] = {}  # work arrays of the block path
         # held stages: the pending input of each stage (index 0 unused)
@@ -1036,7 +1034,7 @@ class FractionalOctaveBank:
                 v = pending[0] if len(pending) == 1 else np.concatenate(pending)
                 self._pending[k] = []
             inputs.append(v)
-        compiled = kernels() if self._sections_normalised else None
+        compiled = kernels()
         plans = [
             self._stage_plan(k) if v.size >= _BLOCK_MIN_SAMPLES and compiled is None else None
             for k, v in enumerate(inputs)

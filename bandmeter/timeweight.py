@@ -773,10 +773,9 @@ class TimeWeightingSet:
         coefficients = np.array([
             (m._averager.a, m._averager._b[0], 1.0 if m._detector else 0.0) for _, m in members
         ])
+        # the I detector's power table (a set holds each weighting once: one detector at most)
         detectors = [m._detector for _, m in members if m._detector is not None]
         decay = detectors[0]._decay if detectors else np.ones(2)
-        if any(d.tau_s != detectors[0].tau_s or d.fs != detectors[0].fs for d in detectors):
-            return self._extremes_numpy(x, starts)  # pragma: no cover - one I detector
         states = np.array([m._averager._state for _, m in members])
         held = np.array([m._detector._held if m._detector else 0.0 for _, m in members])
         full = {name: np.empty(x.size) for name, _ in members if name not in self.maxima_only}
